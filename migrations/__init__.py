@@ -1,0 +1,1 @@
+"""Alembic migrations; shipped as a package so an installed whichsense can migrate."""

@@ -1,0 +1,1 @@
+"""The HTTP layer: FastAPI routers, schemas and dependencies over the store and engine."""

@@ -1,0 +1,432 @@
+"""Inventories, their versions, terms, senses and examples.
+
+Every write goes through `edit_inventory`, so each one yields a new version
+and a whole-document validation; reads of old versions come from snapshots.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+from fastapi import APIRouter, Depends, Request, Response
+from fastapi.responses import JSONResponse
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from service.api.deps import admin_key, any_key, get_session
+from service.api.problems import ProblemError
+from service.api.schemas import (
+    ExampleIn,
+    ExampleOut,
+    InventoryPatch,
+    InventorySummary,
+    SenseIn,
+    SensePatch,
+    TermIn,
+    TermPatch,
+    VersionInfo,
+)
+from service.inventory.csv_format import read_inventory_csv, write_inventory_csv
+from service.inventory.document import inventory_schema
+from service.store import inventories as repo
+from service.store.models import Inventory, InventoryVersion
+
+router = APIRouter(prefix="/v1", tags=["inventories"])
+
+_DOCUMENT_BODY = {
+    "requestBody": {
+        "required": True,
+        "content": {
+            "application/json": {"schema": {"$ref": "#/components/schemas/InventoryDocument"}},
+            "text/csv": {"schema": {"type": "string"}},
+        },
+    }
+}
+
+
+def _summary(session: Session, inventory: Inventory) -> InventorySummary:
+    document = repo.current_document(session, inventory)
+    return InventorySummary(
+        name=inventory.name,
+        version=inventory.version,
+        description=inventory.description,
+        terms=len(document["terms"]),
+        senses=sum(len(term["senses"]) for term in document["terms"]),
+        settings=document["settings"],
+        updated_at=inventory.updated_at,
+    )
+
+
+async def _read_document(request: Request, name: str | None) -> dict[str, Any]:
+    """The inventory document in the body: JSON, or CSV (then `name` comes from the URL)."""
+    media = request.headers.get("content-type", "application/json").split(";")[0].strip()
+    raw = await request.body()
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise ProblemError(
+            400, f"the body is not UTF-8 (byte {exc.start})", kind="bad-encoding"
+        ) from None
+    if media == "text/csv":
+        if not name:
+            raise ProblemError(422, "a CSV inventory needs ?name=<inventory name>")
+        return read_inventory_csv(text, name)
+    if media not in ("application/json", "application/*+json"):
+        raise ProblemError(415, f"send application/json or text/csv, not {media}")
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise ProblemError(
+            400,
+            f"the body is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}",
+            kind="malformed-json",
+        ) from None
+    if not isinstance(data, dict):
+        raise ProblemError(422, "an inventory document is a JSON object")
+    return data
+
+
+def _export(document: dict[str, Any], request: Request) -> Response:
+    if "text/csv" in request.headers.get("accept", ""):
+        return Response(write_inventory_csv(document), media_type="text/csv; charset=utf-8")
+    return JSONResponse(document)
+
+
+@router.get("/schemas/inventory", summary="JSON Schema of the inventory document")
+def get_inventory_schema() -> JSONResponse:
+    return JSONResponse(inventory_schema(), media_type="application/schema+json")
+
+
+@router.get("/inventories", response_model=list[InventorySummary])
+def list_inventories(
+    session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+) -> list[InventorySummary]:
+    return [_summary(session, inventory) for inventory in repo.list_inventories(session)]
+
+
+@router.post(
+    "/inventories",
+    status_code=201,
+    response_model=InventorySummary,
+    openapi_extra=_DOCUMENT_BODY,
+    summary="Create an inventory from a JSON document or a CSV (one row per sense)",
+)
+async def create_inventory(
+    request: Request,
+    response: Response,
+    name: str | None = None,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> InventorySummary:
+    document = await _read_document(request, name)
+    inventory = repo.create_inventory(session, document)
+    summary = _summary(session, inventory)
+    session.commit()
+    response.headers["Location"] = f"/v1/inventories/{inventory.name}"
+    return summary
+
+
+@router.get("/inventories/{name}", response_model=InventorySummary)
+def get_inventory(
+    name: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+) -> InventorySummary:
+    return _summary(session, repo.get_inventory(session, name))
+
+
+@router.patch("/inventories/{name}", response_model=InventorySummary)
+def patch_inventory(
+    name: str,
+    patch: InventoryPatch,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> InventorySummary:
+    def change(document: dict[str, Any]) -> None:
+        if patch.description is not None:
+            document["description"] = patch.description
+        if patch.settings is not None:
+            document["settings"].update(patch.settings.model_dump(exclude_unset=True))
+
+    inventory = repo.edit_inventory(session, name, change)
+    summary = _summary(session, inventory)
+    session.commit()
+    return summary
+
+
+@router.delete("/inventories/{name}", status_code=204)
+def delete_inventory(
+    name: str, session: Session = Depends(get_session), _caller: Any = Depends(admin_key)
+) -> Response:
+    repo.delete_inventory(session, name)
+    session.commit()
+    return Response(status_code=204)
+
+
+@router.get(
+    "/inventories/{name}/document",
+    summary="Export the whole inventory (JSON, or CSV with Accept: text/csv)",
+)
+def export_inventory(
+    name: str,
+    request: Request,
+    version: int | None = None,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(any_key),
+) -> Response:
+    inventory = repo.get_inventory(session, name)
+    chosen = inventory.version if version is None else version
+    return _export(repo.version_document(session, inventory, chosen), request)
+
+
+@router.put(
+    "/inventories/{name}/document",
+    response_model=InventorySummary,
+    openapi_extra=_DOCUMENT_BODY,
+    summary="Replace the whole inventory; a new version",
+)
+async def replace_inventory(
+    name: str,
+    request: Request,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> InventorySummary:
+    document = await _read_document(request, name)
+    if document.get("name", name) != name:
+        raise ProblemError(409, f"the document names '{document.get('name')}', not '{name}'")
+    document["name"] = name
+    inventory = repo.replace_inventory(session, name, document)
+    summary = _summary(session, inventory)
+    session.commit()
+    return summary
+
+
+@router.get("/inventories/{name}/versions", response_model=list[VersionInfo])
+def list_versions(
+    name: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+) -> list[VersionInfo]:
+    inventory = repo.get_inventory(session, name)
+    rows = session.execute(
+        select(InventoryVersion.version, InventoryVersion.created_at)
+        .where(InventoryVersion.inventory_id == inventory.id)
+        .order_by(InventoryVersion.version)
+    )
+    return [VersionInfo(version=v, created_at=c) for v, c in rows]
+
+
+@router.get("/inventories/{name}/versions/{version}", summary="The document at one version")
+def get_version(
+    name: str,
+    version: int,
+    request: Request,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(any_key),
+) -> Response:
+    inventory = repo.get_inventory(session, name)
+    return _export(repo.version_document(session, inventory, version), request)
+
+
+# Terms ---------------------------------------------------------------------------------------
+
+
+@router.get("/inventories/{name}/terms")
+def list_terms(
+    name: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+) -> list[dict[str, Any]]:
+    return repo.current_document(session, repo.get_inventory(session, name))["terms"]
+
+
+@router.post("/inventories/{name}/terms", status_code=201)
+def add_term(
+    name: str,
+    term: TermIn,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> dict[str, Any]:
+    repo.edit_inventory(session, name, lambda d: d["terms"].append(term.model_dump()))
+    session.commit()
+    return term.model_dump()
+
+
+@router.get("/inventories/{name}/terms/{term}")
+def get_term(
+    name: str, term: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+) -> dict[str, Any]:
+    return repo.find_term(repo.current_document(session, repo.get_inventory(session, name)), term)
+
+
+@router.patch("/inventories/{name}/terms/{term}")
+def patch_term(
+    name: str,
+    term: str,
+    patch: TermPatch,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> dict[str, Any]:
+    changed: dict[str, Any] = {}
+
+    def change(document: dict[str, Any]) -> None:
+        entry = repo.find_term(document, term)
+        entry.update(patch.model_dump(exclude_unset=True))
+        changed.update(entry)
+
+    repo.edit_inventory(session, name, change)
+    session.commit()
+    return changed
+
+
+@router.delete("/inventories/{name}/terms/{term}", status_code=204)
+def delete_term(
+    name: str, term: str, session: Session = Depends(get_session), _caller: Any = Depends(admin_key)
+) -> Response:
+    def change(document: dict[str, Any]) -> None:
+        document["terms"].remove(repo.find_term(document, term))
+
+    repo.edit_inventory(session, name, change)
+    session.commit()
+    return Response(status_code=204)
+
+
+# Senses --------------------------------------------------------------------------------------
+
+
+@router.post("/inventories/{name}/terms/{term}/senses", status_code=201)
+def add_sense(
+    name: str,
+    term: str,
+    sense: SenseIn,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> dict[str, Any]:
+    def change(document: dict[str, Any]) -> None:
+        repo.find_term(document, term)["senses"].append(sense.model_dump())
+
+    repo.edit_inventory(session, name, change)
+    session.commit()
+    return sense.model_dump()
+
+
+@router.get("/inventories/{name}/senses/{sense_id}")
+def get_sense(
+    name: str,
+    sense_id: str,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(any_key),
+) -> dict[str, Any]:
+    document = repo.current_document(session, repo.get_inventory(session, name))
+    term, sense = repo.find_sense(document, sense_id)
+    return {**sense, "term": term["term"]}
+
+
+@router.patch("/inventories/{name}/senses/{sense_id}")
+def patch_sense(
+    name: str,
+    sense_id: str,
+    patch: SensePatch,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> dict[str, Any]:
+    changed: dict[str, Any] = {}
+
+    def change(document: dict[str, Any]) -> None:
+        _, sense = repo.find_sense(document, sense_id)
+        sense.update(patch.model_dump(exclude_unset=True))
+        changed.update(sense)
+
+    repo.edit_inventory(session, name, change)
+    session.commit()
+    return changed
+
+
+@router.delete("/inventories/{name}/senses/{sense_id}", status_code=204)
+def delete_sense(
+    name: str,
+    sense_id: str,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> Response:
+    def change(document: dict[str, Any]) -> None:
+        term, sense = repo.find_sense(document, sense_id)
+        term["senses"].remove(sense)
+
+    repo.edit_inventory(session, name, change)
+    session.commit()
+    return Response(status_code=204)
+
+
+# Examples ------------------------------------------------------------------------------------
+
+
+@router.get("/inventories/{name}/senses/{sense_id}/examples", response_model=list[ExampleOut])
+def list_examples(
+    name: str,
+    sense_id: str,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(any_key),
+) -> list[ExampleOut]:
+    document = repo.current_document(session, repo.get_inventory(session, name))
+    _, sense = repo.find_sense(document, sense_id)
+    return [ExampleOut(index=i, text=t) for i, t in enumerate(sense.get("examples", []))]
+
+
+@router.post(
+    "/inventories/{name}/senses/{sense_id}/examples", status_code=201, response_model=ExampleOut
+)
+def add_example(
+    name: str,
+    sense_id: str,
+    example: ExampleIn,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> ExampleOut:
+    position: list[int] = []
+
+    def change(document: dict[str, Any]) -> None:
+        _, sense = repo.find_sense(document, sense_id)
+        sense.setdefault("examples", []).append(example.text)
+        position.append(len(sense["examples"]) - 1)
+
+    repo.edit_inventory(session, name, change)
+    session.commit()
+    return ExampleOut(index=position[0], text=example.text)
+
+
+def _example_at(sense: dict[str, Any], index: int) -> None:
+    if not 0 <= index < len(sense.get("examples", [])):
+        raise ProblemError(404, f"sense '{sense['id']}' has no example {index}")
+
+
+@router.put("/inventories/{name}/senses/{sense_id}/examples/{index}", response_model=ExampleOut)
+def replace_example(
+    name: str,
+    sense_id: str,
+    index: int,
+    example: ExampleIn,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> ExampleOut:
+    def change(document: dict[str, Any]) -> None:
+        _, sense = repo.find_sense(document, sense_id)
+        _example_at(sense, index)
+        sense["examples"][index] = example.text
+
+    repo.edit_inventory(session, name, change)
+    session.commit()
+    return ExampleOut(index=index, text=example.text)
+
+
+@router.delete("/inventories/{name}/senses/{sense_id}/examples/{index}", status_code=204)
+def delete_example(
+    name: str,
+    sense_id: str,
+    index: int,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> Response:
+    def change(document: dict[str, Any]) -> None:
+        _, sense = repo.find_sense(document, sense_id)
+        _example_at(sense, index)
+        del sense["examples"][index]
+
+    repo.edit_inventory(session, name, change)
+    session.commit()
+    return Response(status_code=204)

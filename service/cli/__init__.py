@@ -1,0 +1,1 @@
+"""The `whichsense` command line: one module per subcommand group."""

@@ -1,0 +1,51 @@
+"""`whichsense keys create|list|revoke`: API keys (shown once, stored hashed)."""
+
+from __future__ import annotations
+
+import argparse
+
+from service.store.database import session_scope
+from service.store.keys import SCOPES, create_key, list_keys, revoke_key
+
+
+def add_parser(commands: argparse._SubParsersAction) -> None:
+    parser = commands.add_parser("keys", help="manage API keys")
+    actions = parser.add_subparsers(dest="action", metavar="ACTION", required=True)
+    create = actions.add_parser("create", help="create a key and print it once")
+    create.add_argument("--scope", choices=SCOPES, required=True)
+    create.add_argument("--label", default="", help="who or what uses the key")
+    create.add_argument("--quiet", action="store_true", help="print only the key")
+    create.set_defaults(func=run_create)
+    actions.add_parser("list", help="list keys (never their secrets)").set_defaults(func=run_list)
+    revoke = actions.add_parser("revoke", help="revoke a key by its id")
+    revoke.add_argument("key_id")
+    revoke.set_defaults(func=run_revoke)
+
+
+def run_create(args: argparse.Namespace) -> int:
+    with session_scope() as session:
+        issued = create_key(session, args.scope, args.label)
+    if args.quiet:
+        print(issued.token)
+        return 0
+    print(f"key id:          {issued.key_id}")
+    print(f"scope:           {issued.scope}")
+    print(f"API key:         {issued.token}")
+    print(f"webhook secret:  {issued.signing_secret}")
+    print("Store both now: the key is kept only as a hash and cannot be shown again.")
+    return 0
+
+
+def run_list(_args: argparse.Namespace) -> int:
+    with session_scope() as session:
+        for key in list_keys(session):
+            state = f"revoked {key.revoked_at:%Y-%m-%d}" if key.revoked_at else "active"
+            print(f"{key.key_id}\t{key.scope}\t{state}\t{key.label}")
+    return 0
+
+
+def run_revoke(args: argparse.Namespace) -> int:
+    with session_scope() as session:
+        key = revoke_key(session, args.key_id)
+    print(f"revoked {key.key_id}")
+    return 0

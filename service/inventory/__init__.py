@@ -1,0 +1,1 @@
+"""The inventory document: our JSON and CSV interchange formats and their validation."""

@@ -1,0 +1,1 @@
+"""Persistence: typed SQLAlchemy models and the repositories that use them."""

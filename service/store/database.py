@@ -1,0 +1,119 @@
+"""Engines, sessions and the migration gate.
+
+SQLite is the embedded default; PostgreSQL serves teams and many workers. The
+same models and migrations run on both, so this module only smooths the
+dialect differences that matter at run time (foreign keys, WAL, busy waits).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from contextlib import contextmanager
+from functools import lru_cache
+from pathlib import Path
+
+from alembic import command
+from alembic.config import Config
+from alembic.runtime.migration import MigrationContext
+from alembic.script import ScriptDirectory
+from sqlalchemy import Engine, create_engine, event
+from sqlalchemy.engine import make_url
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.config import Settings, get_settings
+
+MIGRATIONS_DIR = Path(__file__).resolve().parent.parent.parent / "migrations"
+
+
+class DatabaseNotMigrated(RuntimeError):
+    """The schema is missing or older than this code; `whichsense db upgrade` fixes it."""
+
+
+def _configure_sqlite(engine: Engine) -> None:
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]
+        # Let Python's sqlite3 stop issuing its own BEGIN so we control it.
+        dbapi_connection.isolation_level = None
+        cursor = dbapi_connection.cursor()
+        cursor.execute("PRAGMA foreign_keys=ON")
+        cursor.execute("PRAGMA busy_timeout=30000")
+        cursor.execute("PRAGMA journal_mode=WAL")
+        cursor.execute("PRAGMA synchronous=NORMAL")
+        cursor.close()
+
+    @event.listens_for(engine, "begin")
+    def _on_begin(conn) -> None:  # type: ignore[no-untyped-def]
+        # IMMEDIATE takes the write lock up front: one claimer at a time, no
+        # deadlock-prone lock upgrades between the API and the worker.
+        conn.exec_driver_sql("BEGIN IMMEDIATE")
+
+
+def make_engine(url: str) -> Engine:
+    """An engine for `url`, with SQLite tuned for one writer and many readers."""
+    parsed = make_url(url)
+    if parsed.get_backend_name() == "sqlite":
+        database = parsed.database
+        if database and database != ":memory:":
+            Path(database).expanduser().parent.mkdir(parents=True, exist_ok=True)
+        engine = create_engine(url, connect_args={"check_same_thread": False, "timeout": 30})
+        _configure_sqlite(engine)
+        return engine
+    return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=20)
+
+
+@lru_cache(maxsize=8)
+def engine_for(url: str) -> Engine:
+    """One engine (and pool) per URL per process."""
+    return make_engine(url)
+
+
+def session_factory(url: str) -> sessionmaker[Session]:
+    return sessionmaker(engine_for(url), expire_on_commit=False)
+
+
+@contextmanager
+def session_scope(settings: Settings | None = None) -> Iterator[Session]:
+    """A session that commits on success and rolls back on any error."""
+    settings = settings or get_settings()
+    session = session_factory(settings.database_url)()
+    try:
+        yield session
+        session.commit()
+    except BaseException:
+        session.rollback()
+        raise
+    finally:
+        session.close()
+
+
+def alembic_config(url: str) -> Config:
+    config = Config()
+    config.set_main_option("script_location", str(MIGRATIONS_DIR))
+    config.set_main_option("sqlalchemy.url", url.replace("%", "%%"))
+    return config
+
+
+def upgrade(url: str, revision: str = "head") -> None:
+    """Bring the schema at `url` up to `revision`."""
+    command.upgrade(alembic_config(url), revision)
+
+
+def head_revision() -> str | None:
+    return ScriptDirectory.from_config(alembic_config("sqlite://")).get_current_head()
+
+
+def current_revision(engine: Engine) -> str | None:
+    with engine.connect() as connection:
+        return MigrationContext.configure(connection).get_current_revision()
+
+
+def require_migrated(url: str) -> None:
+    """Raise DatabaseNotMigrated unless the schema at `url` is at the head revision."""
+    current = current_revision(engine_for(url))
+    head = head_revision()
+    if current != head:
+        found = current or "no schema"
+        raise DatabaseNotMigrated(
+            f"database {make_url(url).render_as_string(hide_password=True)} is at {found}, "
+            f"this whichsense needs {head}: run `whichsense db upgrade`"
+        )

@@ -1,0 +1,87 @@
+"""API keys: `ws_<key id>_<secret>`, only a SHA-256 of the secret is stored.
+
+The secret has 256 bits of entropy, so a plain hash (no slow KDF) suffices and
+keeps per-request checks cheap. Scopes nest: admin > review, admin > ingest.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import hmac
+import secrets
+from dataclasses import dataclass
+from typing import Literal
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from service.store.errors import NotFound
+from service.store.models import ApiKey, utcnow
+
+Scope = Literal["ingest", "review", "admin"]
+SCOPES: tuple[Scope, ...] = ("ingest", "review", "admin")
+PREFIX = "ws"
+
+
+@dataclass(frozen=True)
+class IssuedKey:
+    """What the creator sees once: the full token and the webhook signing secret."""
+
+    key_id: str
+    token: str
+    scope: Scope
+    signing_secret: str
+
+
+def _hash(secret: str) -> str:
+    return hashlib.sha256(secret.encode("ascii")).hexdigest()
+
+
+def grants(held: str, needed: Scope) -> bool:
+    """Whether a key of scope `held` may call a route that needs `needed`."""
+    return held == needed or held == "admin"
+
+
+def create_key(session: Session, scope: Scope, label: str = "") -> IssuedKey:
+    if scope not in SCOPES:
+        raise ValueError(f"scope must be one of {', '.join(SCOPES)}")
+    key_id = secrets.token_hex(6)
+    secret = secrets.token_urlsafe(32)
+    signing_secret = secrets.token_hex(32)
+    session.add(
+        ApiKey(
+            key_id=key_id,
+            secret_hash=_hash(secret),
+            scope=scope,
+            label=label,
+            signing_secret=signing_secret,
+        )
+    )
+    session.flush()
+    return IssuedKey(key_id, f"{PREFIX}_{key_id}_{secret}", scope, signing_secret)
+
+
+def authenticate(session: Session, token: str) -> ApiKey | None:
+    """The live key for `token`, or None if it is malformed, unknown or revoked."""
+    parts = token.split("_", 2)
+    if len(parts) != 3 or parts[0] != PREFIX:
+        return None
+    key = session.scalars(select(ApiKey).where(ApiKey.key_id == parts[1])).one_or_none()
+    if key is None or key.revoked_at is not None:
+        return None
+    if not hmac.compare_digest(key.secret_hash, _hash(parts[2])):
+        return None
+    return key
+
+
+def list_keys(session: Session) -> list[ApiKey]:
+    return list(session.scalars(select(ApiKey).order_by(ApiKey.created_at)))
+
+
+def revoke_key(session: Session, key_id: str) -> ApiKey:
+    key = session.scalars(select(ApiKey).where(ApiKey.key_id == key_id)).one_or_none()
+    if key is None:
+        raise NotFound(f"API key '{key_id}' does not exist")
+    if key.revoked_at is None:
+        key.revoked_at = utcnow()
+    return key

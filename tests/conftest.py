@@ -1,0 +1,181 @@
+"""Shared fixtures: databases (SQLite and the real PostgreSQL), app clients, API keys."""
+
+from __future__ import annotations
+
+import copy
+import os
+import uuid
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+from sqlalchemy import create_engine, text
+from sqlalchemy.engine import make_url
+
+os.environ.setdefault("HF_HUB_OFFLINE", "1")
+os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
+
+from service.config import Settings, get_settings  # noqa: E402
+from service.store import database  # noqa: E402
+from service.store.models import Base  # noqa: E402
+
+REPO = Path(__file__).resolve().parent.parent
+SHARED_DATA = REPO.parent / "shared" / "data"
+POSTGRES_URL = os.environ.get(
+    "WHICHSENSE_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"
+)
+
+SMALL_INVENTORY: dict[str, Any] = {
+    "format": "whichsense.inventory/1",
+    "name": "tiny-shop",
+    "description": "Two terms for the tests.",
+    "terms": [
+        {
+            "term": "bass",
+            "aliases": ["bass guitar"],
+            "senses": [
+                {
+                    "id": "bass.fish",
+                    "gloss": "a freshwater or sea fish caught for sport or food",
+                    "examples": ["He landed a four-pound bass from the dock at dawn."],
+                    "tags": ["dept:fishing"],
+                },
+                {
+                    "id": "bass.music",
+                    "gloss": "the lowest range of musical sound, or the instrument that plays it",
+                    "examples": ["Turn the bass down on the speaker, the windows rattle."],
+                    "tags": ["dept:music"],
+                },
+            ],
+        },
+        {
+            "term": "mouse",
+            "pos": "n",
+            "senses": [
+                {
+                    "id": "mouse.animal",
+                    "gloss": "a small rodent with a long tail",
+                    "examples": ["A mouse got into the pantry and chewed the oats."],
+                },
+                {
+                    "id": "mouse.device",
+                    "gloss": "a hand-held pointing device for a computer",
+                    "examples": ["The wireless mouse needs two new batteries."],
+                },
+            ],
+        },
+    ],
+}
+
+
+@pytest.fixture
+def inventory_document() -> dict[str, Any]:
+    """A fresh copy of the small test inventory."""
+    return copy.deepcopy(SMALL_INVENTORY)
+
+
+def _postgres_available() -> bool:
+    try:
+        engine = create_engine(POSTGRES_URL)
+        with engine.connect() as conn:
+            conn.execute(text("SELECT 1"))
+        engine.dispose()
+        return True
+    except Exception:
+        return False
+
+
+@pytest.fixture(scope="session")
+def postgres_admin_url() -> str:
+    """The server URL; CI must have PostgreSQL, so there a missing server is a failure."""
+    if not _postgres_available():
+        if os.environ.get("CI"):
+            pytest.fail(f"PostgreSQL is not reachable at {POSTGRES_URL}")
+        pytest.skip(f"PostgreSQL is not reachable at {POSTGRES_URL}")
+    return POSTGRES_URL
+
+
+def create_postgres_database(admin_url: str) -> str:
+    """A new, empty database on the test server; returns its URL."""
+    name = f"whichsense_test_{uuid.uuid4().hex[:10]}"
+    engine = create_engine(admin_url, isolation_level="AUTOCOMMIT")
+    with engine.connect() as conn:
+        conn.execute(text(f'CREATE DATABASE "{name}"'))
+    engine.dispose()
+    return make_url(admin_url).set(database=name).render_as_string(hide_password=False)
+
+
+def drop_postgres_database(admin_url: str, url: str) -> None:
+    database.engine_for(url).dispose()
+    database.engine_for.cache_clear()
+    name = make_url(url).database
+    engine = create_engine(admin_url, isolation_level="AUTOCOMMIT")
+    with engine.connect() as conn:
+        conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+    engine.dispose()
+
+
+@pytest.fixture(scope="session")
+def postgres_url(postgres_admin_url: str) -> Iterator[str]:
+    """One migrated PostgreSQL database for the session; tables are emptied per test."""
+    url = create_postgres_database(postgres_admin_url)
+    database.upgrade(url)
+    yield url
+    drop_postgres_database(postgres_admin_url, url)
+
+
+def _empty_tables(url: str) -> None:
+    engine = database.engine_for(url)
+    with engine.begin() as conn:
+        names = ", ".join(f'"{t.name}"' for t in Base.metadata.sorted_tables)
+        conn.execute(text(f"TRUNCATE {names} RESTART IDENTITY CASCADE"))
+
+
+@pytest.fixture(params=["sqlite", pytest.param("postgres", marks=pytest.mark.postgres)])
+def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
+    """A migrated, empty database: a SQLite file, then the real PostgreSQL server."""
+    if request.param == "sqlite":
+        url = f"sqlite:///{tmp_path / 'whichsense.db'}"
+        database.upgrade(url)
+        return url
+    url = request.getfixturevalue("postgres_url")
+    _empty_tables(url)
+    return url
+
+
+@pytest.fixture
+def settings(
+    database_url: str, monkeypatch: pytest.MonkeyPatch, tmp_path: Path
+) -> Iterator[Settings]:
+    """Settings for the test database, also visible to code that calls get_settings()."""
+    monkeypatch.setenv("WHICHSENSE_DATABASE_URL", database_url)
+    monkeypatch.setenv("WHICHSENSE_CACHE_DIR", str(tmp_path / "cache"))
+    monkeypatch.setenv("WHICHSENSE_MAX_REQUEST_BYTES", "200000")
+    get_settings.cache_clear()
+    yield get_settings()
+    get_settings.cache_clear()
+
+
+@pytest.fixture
+def api_keys(settings: Settings) -> dict[str, str]:
+    """One live token per scope."""
+    from service.store.keys import create_key
+
+    with database.session_scope(settings) as session:
+        return {scope: create_key(session, scope).token for scope in ("ingest", "review", "admin")}
+
+
+@pytest.fixture
+def client(settings: Settings) -> Iterator[Any]:
+    """A TestClient on a fresh app over the test database (lifespan run: migration checked)."""
+    from fastapi.testclient import TestClient
+
+    from service.api.app import create_app
+
+    with TestClient(create_app(settings), raise_server_exceptions=False) as test_client:
+        yield test_client
+
+
+def bearer(token: str) -> dict[str, str]:
+    return {"Authorization": f"Bearer {token}"}
