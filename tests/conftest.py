@@ -16,9 +16,9 @@ from sqlalchemy.engine import make_url
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
 os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
 
-from service.config import Settings, get_settings  # noqa: E402
-from service.store import database  # noqa: E402
-from service.store.models import Base  # noqa: E402
+from service.config import Settings, get_settings
+from service.store import database
+from service.store.models import Base
 
 REPO = Path(__file__).resolve().parent.parent
 SHARED_DATA = REPO.parent / "shared" / "data"

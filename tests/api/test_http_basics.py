@@ -77,9 +77,11 @@ def test_readiness_reports_a_missing_model(settings, tmp_path):
 
 def test_refuses_to_start_on_an_unmigrated_database(tmp_path):
     empty = Settings(database_url=f"sqlite:///{tmp_path / 'empty.db'}")
-    with pytest.raises(DatabaseNotMigrated, match="whichsense db upgrade"):
-        with TestClient(create_app(empty)):
-            pass
+    with (
+        pytest.raises(DatabaseNotMigrated, match="whichsense db upgrade"),
+        TestClient(create_app(empty)),
+    ):
+        pass
 
 
 def test_metrics_are_prometheus_text(client):

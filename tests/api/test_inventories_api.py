@@ -217,3 +217,37 @@ def test_published_schema_is_valid_json_schema(client, api_keys, inventory_docum
     Draft202012Validator(schema).validate(inventory_document)
     inventory_document["terms"][0]["case"] = "sometimes"
     assert list(Draft202012Validator(schema).iter_errors(inventory_document))
+
+
+def test_evidence_is_added_whole_or_not_at_all(client, api_keys, inventory_document):
+    admin = bearer(api_keys["admin"])
+    client.post("/v1/inventories", json=inventory_document, headers=admin)
+    good = {
+        "text": "Caught a bass at dawn.",
+        "start": 9,
+        "end": 13,
+        "term": "bass",
+        "sense": "bass.fish",
+    }
+    bad = {**good, "sense": "bass.nonexistent"}
+    response = client.post(
+        "/v1/inventories/tiny-shop/evidence", json={"occurrences": [good, bad]}, headers=admin
+    )
+    assert "bass.nonexistent" in assert_problem(response, 409)["detail"]
+    counts = client.get("/v1/inventories/tiny-shop/evidence", headers=admin).json()
+    assert counts == {"per_sense": {}, "watermark": 0}
+    out_of_range = {**good, "end": 99}
+    assert_problem(
+        client.post(
+            "/v1/inventories/tiny-shop/evidence",
+            json={"occurrences": [out_of_range]},
+            headers=admin,
+        ),
+        409,
+    )
+    response = client.post(
+        "/v1/inventories/tiny-shop/evidence", json={"occurrences": [good, good]}, headers=admin
+    )
+    assert response.json() == {"added": 2}
+    counts = client.get("/v1/inventories/tiny-shop/evidence", headers=admin).json()
+    assert counts["per_sense"] == {"bass.fish": 2} and counts["watermark"] >= 2

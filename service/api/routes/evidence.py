@@ -1,0 +1,62 @@
+"""Labeled evidence for an inventory: occurrences whose sense a person or corpus settled."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import APIRouter, Depends
+from pydantic import BaseModel, Field
+from sqlalchemy.orm import Session
+
+from service.api.deps import admin_key, any_key, get_session
+from service.engine.types import Evidence
+from service.store import evidence as evidence_repo
+from service.store.inventories import get_inventory
+
+router = APIRouter(prefix="/v1", tags=["evidence"])
+
+
+class LabeledOccurrenceIn(BaseModel):
+    """One labeled occurrence: `text[start:end]` is the term, `sense` its sense id."""
+
+    text: str = Field(min_length=1, max_length=20_000)
+    start: int = Field(ge=0)
+    end: int = Field(gt=0)
+    term: str = Field(min_length=1, max_length=200)
+    sense: str = Field(min_length=1, max_length=200)
+
+
+class EvidenceIn(BaseModel):
+    occurrences: list[LabeledOccurrenceIn] = Field(min_length=1, max_length=10_000)
+
+
+@router.post("/inventories/{name}/evidence", status_code=201)
+def add_evidence(
+    name: str,
+    body: EvidenceIn,
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
+) -> dict[str, int]:
+    """Add labeled occurrences; all or nothing (an unknown sense refuses the whole body)."""
+    added = evidence_repo.add_evidence(
+        session,
+        name,
+        (
+            Evidence(0, item.term, item.sense, item.text, item.start, item.end, "import")
+            for item in body.occurrences
+        ),
+    )
+    session.commit()
+    return {"added": added}
+
+
+@router.get("/inventories/{name}/evidence")
+def count_evidence(
+    name: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+) -> dict[str, Any]:
+    """How much evidence each sense has, and the watermark a new batch would pin."""
+    inventory = get_inventory(session, name)
+    return {
+        "per_sense": evidence_repo.count_evidence(session, inventory.id),
+        "watermark": evidence_repo.evidence_watermark(session, inventory.id),
+    }
