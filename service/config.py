@@ -46,9 +46,6 @@ class Settings(BaseSettings):
     max_sync_documents: int = Field(
         default=16, gt=0, description="Documents accepted by POST /v1/disambiguate."
     )
-    max_inventory_bytes: int = Field(
-        default=50_000_000, gt=0, description="Largest inventory document accepted on import."
-    )
     chunk_size: int = Field(default=16, gt=0, description="Documents a worker claims at once.")
     lease_seconds: float = Field(default=120.0, gt=0, description="How long a claim lasts.")
     max_attempts: int = Field(default=3, gt=0, description="Tries before a document fails.")
