@@ -30,25 +30,44 @@ class Settings(BaseSettings):
         default=Path.home() / ".cache" / "whichsense",
         description="Where encoded training sets and WordNet helper files are cached.",
     )
+    torch_threads: int | None = Field(
+        default=None, ge=1, description="Encoder threads; empty means half the cores, at least one."
+    )
     review_threshold: float = Field(
         default=0.6, ge=0.0, le=1.0, description="Default review threshold for new inventories."
     )
     abstain_threshold: float = Field(
-        default=0.15, ge=-1.0, le=1.0,
+        default=0.15,
+        ge=-1.0,
+        le=1.0,
         description="Default cosine similarity under which no sense is assigned.",
     )
-    max_request_bytes: int = Field(default=20_000_000, gt=0, description="Largest request body.")
-    max_document_bytes: int = Field(default=200_000, gt=0, description="Largest document (UTF-8).")
-    max_documents_per_batch: int = Field(default=50_000, gt=0, description="Documents per batch.")
+    max_request_bytes: int = Field(
+        default=20_000_000, gt=0, description="Largest request body. Over it: 413."
+    )
+    max_document_bytes: int = Field(
+        default=200_000,
+        gt=0,
+        description="Largest document: UTF-8 bytes of its text fields. Over it: 413.",
+    )
+    max_documents_per_batch: int = Field(
+        default=50_000, gt=0, description="Documents in one batch. Over it: 413."
+    )
     max_occurrences_per_document: int = Field(
-        default=2_000, gt=0, description="Occurrences tagged in one document."
+        default=2_000,
+        gt=0,
+        description="Term occurrences in one document, counted at submission. Over it: 422.",
     )
     max_sync_documents: int = Field(
-        default=16, gt=0, description="Documents accepted by POST /v1/disambiguate."
+        default=16, gt=0, description="Documents accepted by POST /v1/disambiguate. Over it: 413."
     )
-    chunk_size: int = Field(default=16, gt=0, description="Documents a worker claims at once.")
-    lease_seconds: float = Field(default=120.0, gt=0, description="How long a claim lasts.")
-    max_attempts: int = Field(default=3, gt=0, description="Tries before a document fails.")
+    chunk_size: int = Field(default=16, gt=0, description="Documents a worker leases at once.")
+    lease_seconds: float = Field(
+        default=120.0, gt=0, description="Lease length; heartbeats renew it every third."
+    )
+    max_attempts: int = Field(
+        default=3, gt=0, description="Tries per document before it is recorded as failed."
+    )
     webhook_timeout_seconds: float = Field(default=10.0, gt=0, description="Webhook POST timeout.")
     allow_private_webhooks: bool = Field(
         default=False,

@@ -177,5 +177,15 @@ def client(settings: Settings) -> Iterator[Any]:
         yield test_client
 
 
+@pytest.fixture(scope="session")
+def encoder() -> Any:
+    """The test session's one encoder, the same object every engine the service builds uses
+    (a fixture of the same name in a subfolder's conftest would load a second one)."""
+    from service.engine.encoder import default_model_path
+    from service.tagging.engines import shared_engines
+
+    return shared_engines().encoder(default_model_path())
+
+
 def bearer(token: str) -> dict[str, str]:
     return {"Authorization": f"Bearer {token}"}

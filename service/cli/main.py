@@ -25,7 +25,7 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for module in (database, keys, inventory, serve):
         module.add_parser(commands)
-    for name in ("tag", "evidence", "benchmark", "evaluate", "worker", "demo"):
+    for name in ("tag", "evidence", "calibrate", "benchmark", "evaluate", "worker", "demo"):
         _add_optional(commands, name)
     return parser
 
@@ -52,6 +52,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         level=logging.DEBUG if args.verbose else logging.INFO,
         format="%(asctime)s %(levelname)s %(name)s: %(message)s",
     )
+    if not args.verbose:
+        for chatty in ("httpx", "alembic.runtime.migration"):
+            logging.getLogger(chatty).setLevel(logging.WARNING)
     try:
         return int(args.func(args) or 0)
     except KeyboardInterrupt:

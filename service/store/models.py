@@ -12,6 +12,7 @@ from typing import Any
 
 from sqlalchemy import (
     JSON,
+    BigInteger,
     DateTime,
     Float,
     ForeignKey,
@@ -152,3 +153,143 @@ class ApiKey(Base):
     signing_secret: Mapped[str] = mapped_column(String(64))
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
     revoked_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+
+
+# Batches ---------------------------------------------------------------------------------------
+#
+# A batch is pinned at submission to one inventory version and one evidence
+# watermark, so its results never depend on when a worker got to it. Documents
+# are stored with the batch and grouped into chunks; a chunk is what a worker
+# leases. A result row is unique per (batch, document, field, occurrence), and
+# is written in the same transaction that marks its document done under a
+# still-held lease, so re-running a chunk can never duplicate a result.
+
+BATCH_STATES = ("queued", "running", "done", "failed", "cancelled")
+TERMINAL_BATCH_STATES = ("done", "failed", "cancelled")
+
+
+class Batch(Base):
+    """One submission: its pinning, its idempotency record and its webhook progress."""
+
+    __tablename__ = "batches"
+    __table_args__ = (
+        UniqueConstraint("submitted_by", "idempotency_key"),
+        Index("ix_batches_state_created", "state", "created_at"),
+        Index("ix_batches_webhook_due", "webhook_state", "webhook_next_attempt_at"),
+    )
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    inventory_id: Mapped[int] = mapped_column(ForeignKey("inventories.id", ondelete="CASCADE"))
+    inventory_name: Mapped[str] = mapped_column(String(64))
+    inventory_version: Mapped[int] = mapped_column(Integer)
+    evidence_watermark: Mapped[int] = mapped_column(Integer)
+    state: Mapped[str] = mapped_column(String(16), default="queued")
+    options: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+    chunk_size: Mapped[int] = mapped_column(Integer)
+    document_count: Mapped[int] = mapped_column(Integer, default=0)
+    occurrence_count: Mapped[int] = mapped_column(Integer, default=0)
+    submitted_by: Mapped[str] = mapped_column(String(32))
+    idempotency_key: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    request_digest: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    base_url: Mapped[str] = mapped_column(String(500), default="")
+    callback_url: Mapped[str | None] = mapped_column(Text, nullable=True)
+    webhook_state: Mapped[str] = mapped_column(String(16), default="none")
+    webhook_attempts: Mapped[int] = mapped_column(Integer, default=0)
+    webhook_next_attempt_at: Mapped[datetime | None] = mapped_column(
+        DateTime(timezone=True), nullable=True
+    )
+    error: Mapped[str | None] = mapped_column(Text, nullable=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    started_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+    finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+
+
+class BatchDocument(Base):
+    """A submitted document, kept until its batch is deleted; `state` tracks its processing."""
+
+    __tablename__ = "batch_documents"
+    __table_args__ = (
+        UniqueConstraint("batch_id", "document_id"),
+        UniqueConstraint("batch_id", "position"),
+        Index("ix_batch_documents_chunk", "batch_id", "chunk_index"),
+        Index("ix_batch_documents_state", "batch_id", "state"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    batch_id: Mapped[str] = mapped_column(ForeignKey("batches.id", ondelete="CASCADE"))
+    position: Mapped[int] = mapped_column(Integer)
+    chunk_index: Mapped[int] = mapped_column(Integer)
+    document_id: Mapped[str] = mapped_column(String(200))
+    fields: Mapped[list[Any]] = mapped_column(JSON)
+    document_metadata: Mapped[dict[str, Any]] = mapped_column("metadata", JSON, default=dict)
+    occurrence_count: Mapped[int] = mapped_column(Integer, default=0)
+    state: Mapped[str] = mapped_column(String(16), default="pending")
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    error: Mapped[str | None] = mapped_column(Text, nullable=True)
+    finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+
+
+class BatchChunk(Base):
+    """The unit a worker leases.
+
+    `available_at` means "may be tried from" while pending and "lease expires at"
+    while leased, so one indexed comparison finds both new work and work whose
+    worker died.
+    """
+
+    __tablename__ = "batch_chunks"
+    __table_args__ = (
+        UniqueConstraint("batch_id", "chunk_index"),
+        Index("ix_batch_chunks_due", "state", "available_at"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    batch_id: Mapped[str] = mapped_column(ForeignKey("batches.id", ondelete="CASCADE"))
+    chunk_index: Mapped[int] = mapped_column(Integer)
+    state: Mapped[str] = mapped_column(String(16), default="pending")
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    available_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    lease_owner: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    lease_token: Mapped[str | None] = mapped_column(String(32), nullable=True)
+    last_error: Mapped[str | None] = mapped_column(Text, nullable=True)
+    finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+
+
+class BatchResult(Base):
+    """One occurrence's decision (the Result format), with columns for filtering."""
+
+    __tablename__ = "batch_results"
+    __table_args__ = (
+        UniqueConstraint("batch_id", "document_id", "field", "occurrence_index"),
+        Index("ix_batch_results_order", "batch_id", "document_position", "id"),
+        Index("ix_batch_results_status", "batch_id", "status"),
+    )
+
+    id: Mapped[int] = mapped_column(
+        BigInteger().with_variant(Integer(), "sqlite"), primary_key=True
+    )
+    batch_id: Mapped[str] = mapped_column(ForeignKey("batches.id", ondelete="CASCADE"))
+    document_position: Mapped[int] = mapped_column(Integer)
+    document_id: Mapped[str] = mapped_column(String(200))
+    field: Mapped[str] = mapped_column(String(100))
+    occurrence_index: Mapped[int] = mapped_column(Integer)
+    term: Mapped[str] = mapped_column(String(200))
+    sense_id: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    status: Mapped[str] = mapped_column(String(16))
+    confidence: Mapped[float] = mapped_column(Float)
+    result: Mapped[dict[str, Any]] = mapped_column(JSON)
+
+
+class WebhookAttempt(Base):
+    """One try at POSTing a batch's completion notice to its callback URL."""
+
+    __tablename__ = "webhook_attempts"
+    __table_args__ = (Index("ix_webhook_attempts_batch", "batch_id", "attempt"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    batch_id: Mapped[str] = mapped_column(ForeignKey("batches.id", ondelete="CASCADE"))
+    attempt: Mapped[int] = mapped_column(Integer)
+    attempted_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    status_code: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    error: Mapped[str | None] = mapped_column(Text, nullable=True)
+    duration_seconds: Mapped[float] = mapped_column(Float, default=0.0)

@@ -1,0 +1,340 @@
+"""Batch intake: from a request body to stored rows in one transaction.
+
+The body is read as it arrives (`request.stream()`), hashed for the
+idempotency check as it goes, cut into documents that are validated, counted
+(occurrences, with the pinned inventory's finder) and inserted a group at a
+time. Any problem raises before commit, so a refused submission stores
+nothing. Database work runs in the thread pool: the event loop never waits on
+a lock.
+
+NDJSON bodies: the inventory comes from `?inventory=` (then every line is a
+document), or else the first non-blank line is a header object
+`{"inventory": ..., "callback_url": ..., "options": ...}`. Documents never have
+an "inventory" member, so the two cannot be confused.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import AsyncIterator
+from dataclasses import dataclass, field
+from typing import Any
+
+from sqlalchemy.orm import Session
+from starlette.concurrency import run_in_threadpool
+from starlette.requests import Request
+
+from service.api.problems import ProblemError
+from service.batches.documents import DocumentInvalid, InputDocument, parse_document
+from service.batches.lines import LineTooLong, numbered_lines
+from service.batches.webhook_urls import WebhookUrlRefused, check_url
+from service.config import Settings
+from service.engine import OccurrenceFinder
+from service.store.batches import DocumentSink, start_batch
+from service.store.clock import database_now
+from service.store.models import Batch
+from service.tagging.engines import shared_engines
+
+NDJSON_TYPES = ("application/x-ndjson", "application/jsonl", "application/json-lines")
+HEADER_MEMBERS = frozenset({"inventory", "callback_url", "options"})
+OPTION_DEFAULTS: dict[str, Any] = {"rationale": True}
+GROUP_DOCUMENTS = 200
+GROUP_BYTES = 1_000_000
+
+
+def parse_options(value: Any) -> dict[str, Any]:
+    """Batch options: {"rationale": bool} (default true); anything else is refused."""
+    if value is None:
+        return dict(OPTION_DEFAULTS)
+    if not isinstance(value, dict):
+        raise ProblemError(422, "'options' must be an object")
+    unknown = sorted(set(value) - set(OPTION_DEFAULTS))
+    if unknown:
+        raise ProblemError(422, f"unknown option(s): {', '.join(unknown)}; known: rationale")
+    if not isinstance(value.get("rationale", True), bool):
+        raise ProblemError(422, "option 'rationale' must be true or false")
+    return {**OPTION_DEFAULTS, **value}
+
+
+def check_callback(url: Any, settings: Settings) -> str | None:
+    """The callback URL if acceptable (resolves the host: call off the event loop)."""
+    if url is None:
+        return None
+    if not isinstance(url, str):
+        raise ProblemError(422, "'callback_url' must be a string")
+    try:
+        check_url(url, allow_private=settings.allow_private_webhooks)
+    except WebhookUrlRefused as exc:
+        raise ProblemError(422, str(exc), kind="callback-url-refused") from None
+    return url
+
+
+def _document_problem(exc: DocumentInvalid, where: dict[str, Any]) -> ProblemError:
+    place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
+    if exc.limit is not None:
+        return ProblemError(413, f"{place}: {exc}", limit=exc.limit, **where)
+    return ProblemError(422, f"{place}: {exc}", kind="invalid-document", **where)
+
+
+@dataclass
+class Header:
+    inventory: str
+    callback_url: str | None = None
+    options: dict[str, Any] = field(default_factory=lambda: dict(OPTION_DEFAULTS))
+
+
+class IdempotencyClash(Exception):
+    """Another submission with the same key was stored while this one was read."""
+
+
+class Intake:
+    """One submission's path into the database (see the module docstring)."""
+
+    def __init__(
+        self,
+        request: Request,
+        session: Session,
+        settings: Settings,
+        *,
+        key_id: str,
+        idempotency_key: str | None,
+    ) -> None:
+        self.request = request
+        self.session = session
+        self.settings = settings
+        self.key_id = key_id
+        self.idempotency_key = idempotency_key
+        self.media = request.headers.get("content-type", "").split(";")[0].strip().lower()
+        self.digest = hashlib.sha256()
+        query = sorted((k, v) for k, v in request.query_params.multi_items() if k in HEADER_MEMBERS)
+        self.digest.update(f"{self.media}\n{json.dumps(query)}\n".encode())
+        self._chunks = self._hashed(request.stream())
+        self._seen: dict[str, dict[str, Any]] = {}
+        self._group: list[tuple[dict[str, Any], InputDocument]] = []
+        self._group_bytes = 0
+        self.batch: Batch | None = None
+        self._sink: DocumentSink | None = None
+        self._finder: OccurrenceFinder | None = None
+
+    async def _hashed(self, stream: AsyncIterator[bytes]) -> AsyncIterator[bytes]:
+        async for chunk in stream:
+            self.digest.update(chunk)
+            yield chunk
+
+    async def drain(self) -> str:
+        """Read (and hash) whatever is left of the body; the request digest."""
+        async for _ in self._chunks:
+            pass
+        return self.digest.hexdigest()
+
+    # -- the two body formats -----------------------------------------------------------------
+
+    async def read(self) -> Batch:
+        if self.media in NDJSON_TYPES:
+            return await self._read_ndjson()
+        if self.media in ("application/json", ""):
+            return await self._read_json()
+        raise ProblemError(415, f"send application/json or application/x-ndjson, not {self.media}")
+
+    async def _read_json(self) -> Batch:
+        raw = bytearray()
+        async for chunk in self._chunks:
+            raw += chunk
+        try:
+            text = raw.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise ProblemError(
+                400, f"the body is not UTF-8 (byte {exc.start})", kind="bad-encoding"
+            ) from None
+        del raw
+        try:
+            data = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise ProblemError(
+                400,
+                f"the body is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}",
+                kind="malformed-json",
+            ) from None
+        del text
+        if not isinstance(data, dict):
+            raise ProblemError(422, "the body must be an object with 'inventory' and 'documents'")
+        unknown = sorted(set(data) - HEADER_MEMBERS - {"documents"})
+        if unknown:
+            raise ProblemError(422, f"unknown member(s): {', '.join(unknown)}")
+        documents = data.get("documents")
+        if not isinstance(documents, list):
+            raise ProblemError(422, "'documents' must be a list of documents")
+        if not documents:
+            raise ProblemError(422, "'documents' is empty; a batch needs at least one document")
+        limit = self.settings.max_documents_per_batch
+        if len(documents) > limit:
+            raise ProblemError(
+                413,
+                f"{len(documents)} documents; a batch may have at most {limit}",
+                limit="max_documents_per_batch",
+            )
+        await self._start(self._header(data, {"pointer": "/"}, also={"documents"}))
+        for index, item in enumerate(documents):
+            documents[index] = None  # let parsed items go as we store them
+            await self._take(item, {"index": index, "pointer": f"/documents/{index}"})
+        return await self._finish()
+
+    async def _read_ndjson(self) -> Batch:
+        query = self.request.query_params
+        if "inventory" in query:
+            from_query = {
+                "inventory": query["inventory"],
+                "callback_url": query.get("callback_url"),
+            }
+            await self._start(self._header(from_query, {"query": True}))
+        max_line = 6 * self.settings.max_document_bytes + 65_536
+        try:
+            async for number, line in numbered_lines(self._chunks, max_line_bytes=max_line):
+                if not line.strip():
+                    continue
+                try:
+                    item = json.loads(line.decode("utf-8"))
+                except UnicodeDecodeError as exc:
+                    raise ProblemError(
+                        400,
+                        f"line {number} is not UTF-8 (byte {exc.start} of the line)",
+                        kind="bad-encoding",
+                        line=number,
+                    ) from None
+                except json.JSONDecodeError as exc:
+                    raise ProblemError(
+                        400,
+                        f"line {number} is not valid JSON: {exc.msg} at column {exc.colno}",
+                        kind="malformed-ndjson",
+                        line=number,
+                    ) from None
+                if self.batch is None:
+                    if not isinstance(item, dict) or "inventory" not in item:
+                        raise ProblemError(
+                            422,
+                            f"line {number}: the first line must be a header object "
+                            '{"inventory": ...} unless ?inventory= is given',
+                            kind="missing-header",
+                            line=number,
+                        )
+                    await self._start(self._header(item, {"line": number}))
+                    continue
+                await self._take(item, {"line": number})
+        except LineTooLong as exc:
+            raise ProblemError(413, str(exc), limit="max_document_bytes", line=exc.number) from None
+        if self.batch is None:
+            raise ProblemError(422, "the body has no header and no documents")
+        return await self._finish()
+
+    # -- shared steps -------------------------------------------------------------------------
+
+    def _header(
+        self,
+        data: dict[str, Any],
+        where: dict[str, Any],
+        also: frozenset[str] | set[str] = frozenset(),
+    ) -> Header:
+        unknown = sorted(set(data) - HEADER_MEMBERS - set(also))
+        if unknown:
+            raise ProblemError(422, f"unknown header member(s): {', '.join(unknown)}", **where)
+        inventory = data.get("inventory")
+        if not isinstance(inventory, str) or not inventory:
+            raise ProblemError(422, "'inventory' must name an inventory", **where)
+        return Header(
+            inventory=inventory,
+            callback_url=data.get("callback_url"),
+            options=parse_options(data.get("options")),
+        )
+
+    async def _start(self, header: Header) -> None:
+        callback = await run_in_threadpool(check_callback, header.callback_url, self.settings)
+        await run_in_threadpool(self._start_batch, header, callback)
+
+    def _start_batch(self, header: Header, callback: str | None) -> None:
+        from sqlalchemy.exc import IntegrityError
+
+        try:
+            self.batch = start_batch(
+                self.session,
+                inventory_name=header.inventory,
+                submitted_by=self.key_id,
+                chunk_size=self.settings.chunk_size,
+                options=header.options,
+                callback_url=callback,
+                idempotency_key=self.idempotency_key,
+                base_url=str(self.request.base_url).rstrip("/"),
+            )
+        except IntegrityError:
+            self.session.rollback()
+            raise IdempotencyClash() from None
+        engines = shared_engines()
+        spec = engines.spec(
+            self.session, self.settings.database_url, header.inventory, self.batch.inventory_version
+        )
+        self._finder = engines.finder(self.settings.database_url, spec)
+        self._sink = DocumentSink(self.session, self.batch)
+
+    async def _take(self, item: Any, where: dict[str, Any]) -> None:
+        try:
+            document = parse_document(item, max_document_bytes=self.settings.max_document_bytes)
+        except DocumentInvalid as exc:
+            raise _document_problem(exc, where) from None
+        first = self._seen.get(document.doc_id)
+        if first is not None:
+            earlier = f"line {first['line']}" if "line" in first else f"document {first['index']}"
+            place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
+            raise ProblemError(
+                422,
+                f"{place}: document id {document.doc_id!r} was already used at {earlier}",
+                kind="duplicate-document-id",
+                document_id=document.doc_id,
+                first=first,
+                **where,
+            )
+        limit = self.settings.max_documents_per_batch
+        if len(self._seen) >= limit:
+            raise ProblemError(
+                413,
+                f"more than {limit} documents; a batch may have at most {limit}",
+                limit="max_documents_per_batch",
+                **where,
+            )
+        self._seen[document.doc_id] = where
+        self._group.append((where, document))
+        self._group_bytes += document.text_bytes
+        if len(self._group) >= GROUP_DOCUMENTS or self._group_bytes >= GROUP_BYTES:
+            await self._store_group()
+
+    async def _store_group(self) -> None:
+        group, self._group, self._group_bytes = self._group, [], 0
+        if group:
+            await run_in_threadpool(self._store, group)
+
+    def _store(self, group: list[tuple[dict[str, Any], InputDocument]]) -> None:
+        assert self._finder is not None and self._sink is not None
+        limit = self.settings.max_occurrences_per_document
+        for where, document in group:
+            occurrences = len(self._finder.find(document.to_engine()))
+            if occurrences > limit:
+                place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
+                raise ProblemError(
+                    422,
+                    f"{place}: document {document.doc_id!r} has {occurrences} occurrences; "
+                    f"the limit is {limit}",
+                    limit="max_occurrences_per_document",
+                    **where,
+                )
+            self._sink.add(document, occurrences)
+
+    async def _finish(self) -> Batch:
+        await self._store_group()
+        if self._sink is None or self._sink.count == 0:
+            raise ProblemError(422, "the batch has no documents; send at least one")
+        digest = self.digest.hexdigest()
+        sink = self._sink
+
+        def close() -> Batch:
+            return sink.close(digest, database_now(self.session))
+
+        return await run_in_threadpool(close)

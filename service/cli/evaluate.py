@@ -1,0 +1,139 @@
+"""`whichsense evaluate LABELED.jsonl --inventory NAME_OR_FILE -o DIR`: score the engine."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from collections import Counter
+from pathlib import Path
+
+from service.engine.types import Evidence, InventorySpec
+from service.evaluation.labeled import LabeledOccurrence, read_labeled
+from service.evaluation.report import Outcome, summarise, write_report
+from service.inventory.document import fold
+
+
+def add_parser(commands: argparse._SubParsersAction) -> None:
+    parser = commands.add_parser(
+        "evaluate",
+        help="score the engine on labeled occurrences and write an HTML report",
+        description="Classify every labeled occurrence with the inventory's senses and write "
+        "summary.json and a self-contained report.html: accuracy, per-term precision/recall/"
+        "F1, confusion matrices, reliability diagram and the review threshold that reaches "
+        "the target accuracy.",
+    )
+    parser.add_argument("labeled", type=Path, help="labeled occurrences (JSON Lines)")
+    parser.add_argument("--inventory", required=True, metavar="NAME_OR_FILE",
+                        help="an inventory document (.json) or the name of a stored inventory")
+    parser.add_argument("-o", "--output", type=Path, required=True, metavar="DIR",
+                        help="folder for summary.json and report.html")
+    parser.add_argument("--target-accuracy", type=float, default=0.9,
+                        help="accuracy the review threshold must reach (default 0.9)")
+    parser.add_argument("--no-evidence", action="store_true",
+                        help="ignore a stored inventory's evidence (glosses and examples only)")
+    parser.add_argument("--limit", type=int, metavar="N", help="evaluate the first N only")
+    parser.set_defaults(func=run)
+
+
+def load_inventory(
+    reference: str, with_evidence: bool
+) -> tuple[InventorySpec, list[Evidence], str]:
+    """(inventory, its stored evidence, where it came from): a file first, else the store."""
+    path = Path(reference)
+    if path.is_file():
+        from service.inventory.document import parse_inventory_document
+
+        return parse_inventory_document(json.loads(path.read_text(encoding="utf-8"))), [], "file"
+    from service.store.database import session_scope
+    from service.store.evidence import load_evidence
+    from service.store.inventories import get_inventory, load_inventory_spec
+
+    with session_scope() as session:
+        spec = load_inventory_spec(session, reference)
+        evidence = load_evidence(session, get_inventory(session, reference).id) if (
+            with_evidence) else []
+    return spec, evidence, "database"
+
+
+def match_terms(
+    items: list[LabeledOccurrence], spec: InventorySpec, skipped: Counter[str]
+) -> list[tuple[LabeledOccurrence, str]]:
+    """Labeled items paired with the inventory's spelling of their term; others counted."""
+    terms = {fold(surface): term.term for term in spec.terms
+             for surface in (term.term, *term.aliases)}
+    matched = []
+    for item in items:
+        term = terms.get(fold(item.term))
+        if term is None:
+            skipped["term not in the inventory"] += 1
+        else:
+            matched.append((item, term))
+    return matched
+
+
+def without_labeled_items(
+    evidence: list[Evidence], items: list[LabeledOccurrence], skipped: Counter[str]
+) -> list[Evidence]:
+    """Stored evidence minus the very occurrences being evaluated (no answer leaks in)."""
+    held_out = {(item.text, item.start, item.end) for item in items}
+    kept = [e for e in evidence if (e.text, e.start, e.end) not in held_out]
+    if len(kept) < len(evidence):
+        skipped["stored evidence left out because it is an evaluated item"] = (
+            len(evidence) - len(kept))
+    return kept
+
+
+def run(args: argparse.Namespace) -> int:
+    from service.config import get_settings, resolve_model_dir
+    from service.engine import ContextEncoder, Disambiguator, SpanQuery
+
+    started = time.perf_counter()
+    items = list(read_labeled(args.labeled))
+    if args.limit is not None:
+        items = items[: max(0, args.limit)]
+    spec, evidence, source = load_inventory(args.inventory, not args.no_evidence)
+    skipped: Counter[str] = Counter()
+    matched = match_terms(items, spec, skipped)
+    if not matched:
+        print("whichsense: no labeled occurrence names a term of the inventory", file=sys.stderr)
+        return 2
+    evidence = without_labeled_items(evidence, items, skipped)
+    encoder = ContextEncoder(resolve_model_dir(get_settings()))
+    disambiguator = Disambiguator(encoder, spec, evidence)
+    queries = [SpanQuery(item.text, item.start, item.end, term, document_id=item.occurrence_id)
+               for item, term in matched]
+    results = disambiguator.classify_spans(queries)
+    outcomes = [
+        Outcome(
+            occurrence_id=item.occurrence_id, term=term, gold=item.sense,
+            best=result.candidates[0].sense_id, served=result.sense_id,
+            confidence=float(result.confidence), status=result.status,
+            text=item.text, start=item.start, end=item.end,
+        )
+        for (item, term), result in zip(matched, results, strict=True)
+    ]
+    senses = {term.term: [sense.sense_id for sense in term.senses] for term in spec.terms}
+    summary = summarise(outcomes, senses, target_accuracy=args.target_accuracy)
+    meta = {
+        "labeled_file": str(args.labeled),
+        "inventory": spec.name,
+        "inventory_version": spec.version,
+        "inventory_source": source,
+        "evidence_items": len(evidence),
+        "model_id": encoder.model_id,
+        "skipped": dict(skipped),
+        "seconds": round(time.perf_counter() - started, 2),
+    }
+    summary_path, html_path = write_report(args.output, summary, outcomes, meta)
+    chosen = summary["threshold_for_target"]
+    print(f"accuracy {summary['accuracy']:.3f}  F1 (abstentions unanswered) "
+          f"{summary['served']['f1']:.3f}  ECE {summary['ece']:.3f}  n={summary['n']}")
+    if chosen:
+        print(f"review threshold {chosen['threshold']:.3f} reaches {args.target_accuracy:.0%}: "
+              f"{chosen['coverage']:.1%} assigned automatically")
+    else:
+        print(f"no review threshold reaches {args.target_accuracy:.0%} accuracy")
+    print(f"wrote {summary_path} and {html_path}")
+    return 0

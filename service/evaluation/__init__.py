@@ -1,0 +1,1 @@
+"""Scoring the engine: framework F1, baselines, metrics, the WordNet benchmark and reports."""

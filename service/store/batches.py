@@ -1,0 +1,275 @@
+"""Batch repository: submission, counts, cancellation and the end of a batch.
+
+Submission happens inside the caller's single transaction (an error anywhere
+rolls the whole batch back); `DocumentSink` adds document rows a slice at a
+time so a large upload never sits in memory. Chunk leasing lives in
+`store.leases`, result reading in `store.batch_results`.
+
+Batch states: queued -> running -> done | failed, and queued/running ->
+cancelled. A batch ends "failed" only when not one document could be processed
+(all of them failed); otherwise it is "done", with its failed documents listed.
+"""
+
+from __future__ import annotations
+
+import secrets
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy import func, insert, select, update
+from sqlalchemy.orm import Session
+
+from service.batches.documents import InputDocument
+from service.batches.status import BatchCounts
+from service.store.errors import Conflict, NotFound
+from service.store.evidence import evidence_watermark
+from service.store.inventories import get_inventory
+from service.store.models import (
+    TERMINAL_BATCH_STATES,
+    Batch,
+    BatchChunk,
+    BatchDocument,
+    BatchResult,
+    WebhookAttempt,
+)
+
+INSERT_ROWS = 500
+
+
+def new_batch_id() -> str:
+    return secrets.token_hex(12)
+
+
+def start_batch(
+    session: Session,
+    *,
+    inventory_name: str,
+    submitted_by: str,
+    chunk_size: int,
+    options: dict[str, Any],
+    callback_url: str | None = None,
+    idempotency_key: str | None = None,
+    base_url: str = "",
+) -> Batch:
+    """Create the batch row pinned to the current inventory version and evidence watermark.
+
+    Flushed at once, so a clashing idempotency key fails here (IntegrityError),
+    before any document is read.
+    """
+    inventory = get_inventory(session, inventory_name)
+    batch = Batch(
+        id=new_batch_id(),
+        inventory_id=inventory.id,
+        inventory_name=inventory.name,
+        inventory_version=inventory.version,
+        evidence_watermark=evidence_watermark(session, inventory.id),
+        state="queued",
+        options=options,
+        chunk_size=chunk_size,
+        document_count=0,
+        occurrence_count=0,
+        submitted_by=submitted_by,
+        idempotency_key=idempotency_key,
+        callback_url=callback_url,
+        base_url=base_url,
+        webhook_state="none",
+        webhook_attempts=0,
+    )
+    session.add(batch)
+    session.flush()
+    return batch
+
+
+class DocumentSink:
+    """Adds a new batch's documents in submission order, INSERT_ROWS rows at a time."""
+
+    def __init__(self, session: Session, batch: Batch) -> None:
+        self.session = session
+        self.batch = batch
+        self.count = 0
+        self.occurrences = 0
+        self._rows: list[dict[str, Any]] = []
+
+    def add(self, document: InputDocument, occurrences: int) -> None:
+        self._rows.append(
+            {
+                "batch_id": self.batch.id,
+                "position": self.count,
+                "chunk_index": self.count // self.batch.chunk_size,
+                "document_id": document.doc_id,
+                "fields": document.fields_json(),
+                "document_metadata": document.metadata,
+                "occurrence_count": occurrences,
+                "state": "pending",
+                "attempts": 0,
+            }
+        )
+        self.count += 1
+        self.occurrences += occurrences
+        if len(self._rows) >= INSERT_ROWS:
+            self.flush()
+
+    def flush(self) -> None:
+        if self._rows:
+            self.session.execute(insert(BatchDocument), self._rows)
+            self._rows = []
+
+    def close(self, request_digest: str | None, now: datetime) -> Batch:
+        """Write the last rows, one chunk row per `chunk_size` documents, and the totals."""
+        self.flush()
+        chunks = -(-self.count // self.batch.chunk_size)
+        for first in range(0, chunks, INSERT_ROWS):
+            self.session.execute(
+                insert(BatchChunk),
+                [
+                    {
+                        "batch_id": self.batch.id,
+                        "chunk_index": index,
+                        "state": "pending",
+                        "attempts": 0,
+                        "available_at": now,
+                    }
+                    for index in range(first, min(chunks, first + INSERT_ROWS))
+                ],
+            )
+        self.batch.document_count = self.count
+        self.batch.occurrence_count = self.occurrences
+        self.batch.request_digest = request_digest
+        self.session.flush()
+        return self.batch
+
+
+def schedule_webhook(batch: Batch, now: datetime) -> None:
+    """Make the batch's completion notice due now, if it has a callback URL."""
+    if batch.callback_url:
+        batch.webhook_state = "pending"
+        batch.webhook_next_attempt_at = now
+
+
+def get_batch(session: Session, batch_id: str, *, for_update: bool = False) -> Batch:
+    query = select(Batch).where(Batch.id == batch_id)
+    if for_update:
+        query = query.with_for_update()
+    batch = session.scalars(query).one_or_none()
+    if batch is None:
+        raise NotFound(f"batch '{batch_id}' does not exist")
+    return batch
+
+
+def find_by_idempotency_key(session: Session, key_id: str, idempotency_key: str) -> Batch | None:
+    return session.scalars(
+        select(Batch).where(Batch.submitted_by == key_id, Batch.idempotency_key == idempotency_key)
+    ).one_or_none()
+
+
+def batch_counts(session: Session, batch: Batch) -> BatchCounts:
+    documents = dict(
+        session.execute(
+            select(BatchDocument.state, func.count())
+            .where(BatchDocument.batch_id == batch.id)
+            .group_by(BatchDocument.state)
+        ).all()
+    )
+    results = dict(
+        session.execute(
+            select(BatchResult.status, func.count())
+            .where(BatchResult.batch_id == batch.id)
+            .group_by(BatchResult.status)
+        ).all()
+    )
+    return BatchCounts(
+        documents=batch.document_count,
+        processed_documents=int(documents.get("done", 0)),
+        failed_documents=int(documents.get("failed", 0)),
+        cancelled_documents=int(documents.get("cancelled", 0)),
+        pending_documents=int(documents.get("pending", 0)),
+        occurrences=batch.occurrence_count,
+        processed_occurrences=int(sum(results.values())),
+        assigned=int(results.get("assigned", 0)),
+        review=int(results.get("review", 0)),
+        abstained=int(results.get("abstained", 0)),
+    )
+
+
+def webhook_attempts(session: Session, batch_id: str) -> list[WebhookAttempt]:
+    return list(
+        session.scalars(
+            select(WebhookAttempt)
+            .where(WebhookAttempt.batch_id == batch_id)
+            .order_by(WebhookAttempt.attempt, WebhookAttempt.id)
+        )
+    )
+
+
+def cancel_batch(session: Session, batch_id: str, now: datetime) -> Batch:
+    """Stop a queued or running batch: no chunk is processed or written after this commits.
+
+    A chunk a worker is busy with loses its lease, so that worker's write is
+    refused; results already written stay. Cancelling a cancelled batch is a
+    no-op; a finished one is a Conflict.
+    """
+    batch = get_batch(session, batch_id, for_update=True)
+    if batch.state == "cancelled":
+        return batch
+    if batch.state in TERMINAL_BATCH_STATES:
+        raise Conflict(f"batch '{batch_id}' has already ended ({batch.state})")
+    session.execute(
+        update(BatchChunk)
+        .where(BatchChunk.batch_id == batch_id, BatchChunk.state.in_(("pending", "leased")))
+        .values(state="cancelled", lease_token=None, lease_owner=None, finished_at=now)
+    )
+    session.execute(
+        update(BatchDocument)
+        .where(BatchDocument.batch_id == batch_id, BatchDocument.state == "pending")
+        .values(state="cancelled", finished_at=now)
+    )
+    batch.state = "cancelled"
+    batch.finished_at = now
+    schedule_webhook(batch, now)
+    session.flush()
+    return batch
+
+
+def mark_running(session: Session, batch_id: str, now: datetime) -> None:
+    """queued -> running when a first chunk is claimed (no-op otherwise)."""
+    session.execute(
+        update(Batch)
+        .where(Batch.id == batch_id, Batch.state == "queued")
+        .values(state="running", started_at=now)
+    )
+
+
+def finish_if_complete(session: Session, batch: Batch, now: datetime) -> bool:
+    """End `batch` (locked by the caller) once no chunk is left to do; True if it ended."""
+    if batch.state in TERMINAL_BATCH_STATES:
+        return False
+    open_chunks = session.scalar(
+        select(func.count())
+        .select_from(BatchChunk)
+        .where(BatchChunk.batch_id == batch.id, BatchChunk.state.in_(("pending", "leased")))
+    )
+    if open_chunks:
+        return False
+    states = dict(
+        session.execute(
+            select(BatchDocument.state, func.count())
+            .where(BatchDocument.batch_id == batch.id)
+            .group_by(BatchDocument.state)
+        ).all()
+    )
+    if not states.get("done") and states.get("failed"):
+        first_error = session.scalar(
+            select(BatchDocument.error)
+            .where(BatchDocument.batch_id == batch.id, BatchDocument.state == "failed")
+            .order_by(BatchDocument.position)
+            .limit(1)
+        )
+        batch.state = "failed"
+        batch.error = f"no document could be processed; the first error was: {first_error}"
+    else:
+        batch.state = "done"
+    batch.started_at = batch.started_at or now
+    batch.finished_at = now
+    schedule_webhook(batch, now)
+    session.flush()
+    return True

@@ -1,0 +1,1 @@
+"""The bridge from stored inventories and evidence to engine objects, cached per process."""

@@ -1,0 +1,137 @@
+"""POST /v1/disambiguate: the same result objects as batches, limits, and engines that
+are cached per process and advanced incrementally when evidence grows."""
+
+from __future__ import annotations
+
+from service.engine import Evidence
+from service.store.database import session_scope
+from service.store.evidence import add_evidence, evidence_watermark
+from service.store.inventories import get_inventory
+from service.tagging.engines import Pin, shared_engines
+from tests.pipeline import documents
+from tests.problem_details import assert_problem
+
+RESULT_MEMBERS = {
+    "document_id", "field", "occurrence_index", "start", "end", "surface", "term", "sense_id",
+    "tags", "confidence", "margin", "status", "candidates", "rationale", "inventory_version",
+}  # fmt: skip
+
+
+def test_results_follow_the_result_format(pipeline):
+    docs = [
+        {"id": "a", "text": "The bass was huge.", "fields": {"title": "Mouse and bass"}},
+        {"id": "b", "text": "Nothing to see here."},
+    ]
+    response = pipeline.client.post(
+        "/v1/disambiguate",
+        json={"inventory": "tiny-shop", "documents": docs},
+        headers=pipeline.ingest,
+    )
+    assert response.status_code == 200, response.text
+    body = response.json()
+    assert body["inventory"] == {"name": "tiny-shop", "version": 1}
+    results = body["results"]
+    assert {r["document_id"] for r in results} == {"a"}
+    assert [(r["field"], r["occurrence_index"]) for r in results] == [
+        ("text", 0),
+        ("title", 1),
+        ("title", 2),
+    ]
+    for result in results:
+        assert set(result) == RESULT_MEMBERS
+        text = docs[0]["text"] if result["field"] == "text" else docs[0]["fields"]["title"]
+        assert text[result["start"] : result["end"]] == result["surface"]
+        assert result["status"] in ("assigned", "review", "abstained")
+        assert (result["sense_id"] is None) == (result["status"] == "abstained")
+        assert result["rationale"]["attention"]["method"] == "last-layer-head-average"
+
+
+def test_sync_limits(make_pipeline):
+    pipe = make_pipeline(max_sync_documents=2, max_occurrences_per_document=2)
+    too_many = pipe.client.post(
+        "/v1/disambiguate",
+        json={"inventory": "tiny-shop", "documents": documents(3)},
+        headers=pipe.ingest,
+    )
+    assert assert_problem(too_many, 413)["limit"] == "max_sync_documents"
+    crowded = pipe.client.post(
+        "/v1/disambiguate",
+        json={"inventory": "tiny-shop", "documents": [{"id": "x", "text": "bass bass bass"}]},
+        headers=pipe.ingest,
+    )
+    assert assert_problem(crowded, 422)["limit"] == "max_occurrences_per_document"
+    empty = pipe.client.post(
+        "/v1/disambiguate", json={"inventory": "tiny-shop", "documents": []}, headers=pipe.ingest
+    )
+    assert_problem(empty, 422)
+    unknown = pipe.client.post(
+        "/v1/disambiguate",
+        json={"inventory": "nope", "documents": documents(1)},
+        headers=pipe.ingest,
+    )
+    assert_problem(unknown, 404)
+
+
+def test_engines_are_reused_and_advanced_when_evidence_grows(pipeline):
+    engines = shared_engines()
+    docs = [{"id": "d", "text": "I caught a bass."}]
+
+    def ask() -> dict:
+        response = pipeline.client.post(
+            "/v1/disambiguate",
+            json={"inventory": "tiny-shop", "documents": docs, "options": {"rationale": False}},
+            headers=pipeline.ingest,
+        )
+        assert response.status_code == 200, response.text
+        return response.json()
+
+    first = ask()
+    builds, advances = engines.builds, engines.advances
+    again = ask()
+    assert (engines.builds, engines.advances) == (builds, advances)  # cached, not rebuilt
+    assert again["results"] == first["results"]
+    with session_scope(pipeline.settings) as session:
+        add_evidence(
+            session,
+            "tiny-shop",
+            [
+                Evidence(
+                    0, "bass", "bass.music", f"Turn up the bass on track {n}.", 12, 16, "import"
+                )
+                for n in range(6)
+            ],
+        )
+    grown = ask()
+    assert grown["evidence_watermark"] > first["evidence_watermark"]
+    assert (engines.builds, engines.advances) == (builds, advances + 1)  # incremental
+    before = {c["sense_id"]: c["similarity"] for c in first["results"][0]["candidates"]}
+    after = {c["sense_id"]: c["similarity"] for c in grown["results"][0]["candidates"]}
+    assert after["bass.music"] != before["bass.music"]  # the music prototype moved
+    assert after["bass.fish"] == before["bass.fish"]  # no evidence for the fish sense
+
+
+def test_a_batch_pinned_before_the_evidence_grew_keeps_its_watermark(pipeline):
+    """A pin older than the cached engine gets an engine of its own, never newer prototypes."""
+    engines = shared_engines()
+    batch = pipeline.submit(documents(2))
+    pipeline.sync_results(documents(1))  # caches the engine at the batch's watermark
+    with session_scope(pipeline.settings) as session:
+        add_evidence(
+            session,
+            "tiny-shop",
+            [Evidence(0, "mouse", "mouse.device", "Click the mouse.", 10, 15, "import")],
+        )
+    pipeline.sync_results(documents(1))  # advances the cached engine to the new watermark
+    with session_scope(pipeline.settings) as session:
+        grown = evidence_watermark(session, get_inventory(session, "tiny-shop").id)
+        newest = engines.engine(session, pipeline.settings, Pin("tiny-shop", 1, grown))
+        builds = engines.builds
+        pinned = engines.engine(
+            session, pipeline.settings, Pin("tiny-shop", 1, batch["evidence_watermark"])
+        )
+    assert batch["evidence_watermark"] == 0 < grown
+    assert engines.builds == builds + 1  # built afresh, not taken from the advanced engine
+    assert pinned.watermark == 0 and newest.watermark == grown
+    assert pinned.disambiguator.prototypes is not newest.disambiguator.prototypes
+    pipeline.worker().run_until_idle()
+    assert pipeline.status(batch["id"])["state"] == "done"

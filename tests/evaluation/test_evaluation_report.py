@@ -1,0 +1,137 @@
+"""`whichsense evaluate`: the summary's figures and a self-contained, escaped HTML report."""
+
+from __future__ import annotations
+
+import json
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pytest
+
+from service.cli.main import main
+from service.evaluation.report import Outcome, render_html, summarise
+
+HOSTILE_TEXT = 'Play the <script>alert("bass")</script> bass & drums loud.'
+HOSTILE_SENSE = 'bass."><img src=x onerror=alert(1)>'
+ALLOWED_TAGS = {"html", "head", "meta", "title", "style", "body", "h1", "h2", "h3", "p", "code",
+                "table", "tr", "th", "td", "caption", "div", "figure", "img", "figcaption",
+                "mark"}
+
+
+class TagCollector(HTMLParser):
+    def __init__(self) -> None:
+        super().__init__()
+        self.tags: list[str] = []
+        self.images: list[str] = []
+        self.text: list[str] = []
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        self.tags.append(tag)
+        if tag == "img":
+            self.images.append(dict(attrs).get("src") or "")
+
+    def handle_data(self, data: str) -> None:
+        self.text.append(data)
+
+
+def _outcome(i: int, gold: str, best: str, confidence: float, status: str = "assigned",
+             text: str = "The bass was loud.", term: str = "bass") -> Outcome:
+    start = text.rindex("bass")
+    return Outcome(f"o{i}", term, gold, best, None if status == "abstained" else best,
+                   confidence, status, text, start, start + 4)
+
+
+def test_summary_figures_by_hand() -> None:
+    outcomes = [
+        _outcome(1, "bass.fish", "bass.fish", 0.95),
+        _outcome(2, "bass.fish", "bass.music", 0.55, "review"),
+        _outcome(3, "bass.music", "bass.music", 0.85),
+        _outcome(4, "bass.music", "bass.fish", 0.40, "abstained"),
+    ]
+    summary = summarise(outcomes, {"bass": ["bass.fish", "bass.music"]}, target_accuracy=0.9)
+    assert summary["n"] == 4
+    assert summary["accuracy"] == 0.5
+    # As served: the abstained one is unanswered -> P = 2/3, R = 2/4.
+    assert summary["served"]["precision"] == pytest.approx(2 / 3, abs=1e-6)
+    assert summary["served"]["recall"] == 0.5
+    assert summary["status_counts"] == {"abstained": 1, "assigned": 2, "review": 1}
+    # Sorted by confidence: .95 right, .85 right, .55 wrong, .40 wrong: 100% accuracy holds
+    # down to the threshold 0.85, covering half.
+    assert summary["threshold_for_target"]["threshold"] == 0.85
+    assert summary["threshold_for_target"]["coverage"] == 0.5
+    (term,) = summary["terms"]
+    assert term["confusion"] == {"labels": ["bass.fish", "bass.music"], "matrix": [[1, 1], [1, 1]]}
+    # ECE by hand over 10 bins: bins [0.9,1): |1-.95|, [0.8,.9): |1-.85|, [.5,.6): |0-.55|,
+    # [.4,.5): |0-.40|, each weighted 1/4.
+    assert summary["ece"] == pytest.approx((0.05 + 0.15 + 0.55 + 0.40) / 4, abs=1e-6)
+
+
+def test_html_escapes_every_input_text() -> None:
+    outcomes = [
+        _outcome(1, HOSTILE_SENSE, "bass.music", 0.7, text=HOSTILE_TEXT, term="<b>bass</b>"),
+        _outcome(2, "bass.music", "bass.music", 0.9, text=HOSTILE_TEXT, term="<b>bass</b>"),
+    ]
+    summary = summarise(outcomes, {"<b>bass</b>": ["bass.music", HOSTILE_SENSE]},
+                        target_accuracy=0.9)
+    html = render_html(summary, outcomes, {"inventory": "<i>inv</i>", "labeled_file": "x",
+                                           "inventory_version": 1, "model_id": "m",
+                                           "skipped": {"<u>why</u>": 1}, "seconds": 1.0})
+    assert "<script>" not in html and "<img src=x" not in html and "<b>bass" not in html
+    assert "&lt;script&gt;alert(&#34;bass&#34;)&lt;/script&gt;" in html
+    assert "&lt;b&gt;bass&lt;/b&gt;" in html
+    parser = TagCollector()
+    parser.feed(html)
+    parser.close()
+    assert set(parser.tags) <= ALLOWED_TAGS
+    assert HOSTILE_SENSE in "".join(parser.text)  # shown as text, not markup
+    assert len(parser.images) == 2
+    assert all(src.startswith("data:image/png;base64,") for src in parser.images)
+
+
+INVENTORY = {
+    "format": "whichsense.inventory/1",
+    "name": "eval-test",
+    "terms": [
+        {"term": "bass", "senses": [
+            {"id": "bass.fish", "gloss": "a freshwater or sea fish caught for sport or food",
+             "examples": ["He landed a four-pound bass off the dock."]},
+            {"id": "bass.music", "gloss": "the lowest range of musical sound or the instrument",
+             "examples": ["Turn the bass down, the windows rattle."]},
+        ]},
+    ],
+}
+LABELED = [
+    ("We caught a bass in the lake with a worm.", "bass.fish"),
+    ("The bass player tuned his instrument before the concert.", "bass.music"),
+    (HOSTILE_TEXT, "bass.music"),
+    ("Grilled bass with lemon is on the menu tonight.", "bass.fish"),
+]
+
+
+def test_evaluate_command_writes_summary_and_report(tmp_path: Path) -> None:
+    inventory = tmp_path / "inventory.json"
+    inventory.write_text(json.dumps(INVENTORY), encoding="utf-8")
+    labeled = tmp_path / "labeled.jsonl"
+    rows = []
+    for i, (text, sense) in enumerate(LABELED):
+        start = text.index(" bass ") + 1
+        rows.append({"id": f"l{i}", "text": text, "start": start, "end": start + 4,
+                     "term": "Bass", "sense": sense})
+    rows.append({"id": "x", "text": "a mouse", "start": 2, "end": 7, "term": "mouse",
+                 "sense": "mouse.animal"})
+    labeled.write_text("\n".join(json.dumps(r) for r in rows) + "\n", encoding="utf-8")
+    out = tmp_path / "report"
+    code = main(["evaluate", str(labeled), "--inventory", str(inventory), "-o", str(out),
+                 "--target-accuracy", "0.75"])
+    assert code == 0
+    summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    assert summary["n"] == 4
+    assert summary["meta"]["skipped"] == {"term not in the inventory": 1}
+    assert summary["target_accuracy"] == 0.75
+    assert 0.0 <= summary["accuracy"] <= 1.0 and 0.0 <= summary["ece"] <= 1.0
+    assert [t["term"] for t in summary["terms"]] == ["bass"]
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert "<script>" not in html
+    parser = TagCollector()
+    parser.feed(html)
+    assert set(parser.tags) <= ALLOWED_TAGS

@@ -1,0 +1,153 @@
+"""Leases on the database: a stale holder never writes, heartbeats keep a lease,
+expired leases are reclaimed, and SKIP LOCKED keeps PostgreSQL claimers apart."""
+
+from __future__ import annotations
+
+import threading
+import time
+
+import pytest
+from sqlalchemy import func, insert, select
+from sqlalchemy.exc import IntegrityError
+
+from service.store.database import session_factory
+from service.store.leases import (
+    LeaseLost,
+    claim_chunk,
+    hold_lease,
+    pending_documents,
+    release_chunk,
+    write_document_results,
+)
+from service.store.models import BatchChunk, BatchResult
+from tests.pipeline import assert_same_results, documents
+from worker.heartbeat import LeaseKeeper
+
+
+def test_an_expired_lease_is_reclaimed_and_the_old_holder_writes_nothing(make_pipeline):
+    pipe = make_pipeline(chunk_size=10)
+    docs = documents(3)
+    batch = pipe.submit(docs)
+    sessions = session_factory(pipe.settings.database_url)
+    with sessions.begin() as session:
+        stale = claim_chunk(session, "slow-worker", lease_seconds=0.01)
+    time.sleep(0.05)
+    with sessions.begin() as session:
+        fresh = claim_chunk(session, "other-worker", lease_seconds=60)
+    assert stale is not None and fresh is not None
+    assert fresh.chunk_id == stale.chunk_id and fresh.attempts == 2 and fresh.token != stale.token
+    worker = pipe.worker()
+    assert worker.chunks.run(stale) == "lease_lost"
+    assert pipe.all_results(batch["id"]) == []
+    assert worker.chunks.run(fresh) == "done"
+    assert_same_results(pipe.all_results(batch["id"]), pipe.sync_results(docs))
+    with sessions.begin() as session, pytest.raises(LeaseLost):
+        hold_lease(session, fresh)  # done: the token no longer holds anything
+
+
+def test_results_are_written_once_per_document(make_pipeline):
+    pipe = make_pipeline(chunk_size=10)
+    pipe.submit(documents(1))
+    sessions = session_factory(pipe.settings.database_url)
+    with sessions.begin() as session:
+        claim = claim_chunk(session, "w", lease_seconds=60)
+        assert claim is not None
+        document = pending_documents(session, claim)[0]
+    result = {
+        "field": "text", "occurrence_index": 0, "term": "bass", "sense_id": "bass.fish",
+        "status": "assigned", "confidence": 0.9,
+    }  # fmt: skip
+    with sessions.begin() as session:
+        hold_lease(session, claim)
+        assert write_document_results(session, document, [result], claim_time(session))
+    with sessions.begin() as session:
+        hold_lease(session, claim)
+        assert not write_document_results(session, document, [result], claim_time(session))
+    with pytest.raises(IntegrityError), sessions.begin() as session:
+        row = {
+            "batch_id": claim.batch_id, "document_position": 0,
+            "document_id": document.document_id, "result": result,
+        } | {k: v for k, v in result.items()}  # fmt: skip
+        session.execute(insert(BatchResult), [row])
+    with sessions() as session:
+        assert session.scalar(select(func.count()).select_from(BatchResult)) == 1
+
+
+def claim_time(session):
+    from service.store.clock import database_now
+
+    return database_now(session)
+
+
+def test_heartbeats_keep_the_lease(make_pipeline):
+    pipe = make_pipeline(chunk_size=10)
+    pipe.submit(documents(2))
+    sessions = session_factory(pipe.settings.database_url)
+    with sessions.begin() as session:
+        claim = claim_chunk(session, "beating", lease_seconds=1.0)
+    assert claim is not None
+    with LeaseKeeper(sessions, claim, lease_seconds=1.0, interval=0.1) as keeper:
+        time.sleep(1.6)  # past the first expiry: only the heartbeats keep the lease
+        with sessions.begin() as session:
+            assert claim_chunk(session, "thief", lease_seconds=60) is None
+        assert not keeper.lost.is_set()
+    deadline = time.monotonic() + 10
+    taken = None
+    while taken is None and time.monotonic() < deadline:  # no more heartbeats: it runs out
+        time.sleep(0.2)
+        with sessions.begin() as session:
+            taken = claim_chunk(session, "thief", lease_seconds=60)
+    assert taken is not None and taken.chunk_id == claim.chunk_id
+
+
+def test_a_keeper_notices_a_lost_lease(make_pipeline):
+    pipe = make_pipeline(chunk_size=10)
+    pipe.submit(documents(1))
+    sessions = session_factory(pipe.settings.database_url)
+    with sessions.begin() as session:
+        claim = claim_chunk(session, "w", lease_seconds=60)
+    assert claim is not None
+    with LeaseKeeper(sessions, claim, lease_seconds=60, interval=0.05) as keeper:
+        with sessions.begin() as session:
+            assert release_chunk(session, claim, delay_seconds=0)
+        assert keeper.lost.wait(5)
+
+
+def test_release_on_stop_refunds_the_attempt(make_pipeline):
+    pipe = make_pipeline(chunk_size=10)
+    pipe.submit(documents(1))
+    sessions = session_factory(pipe.settings.database_url)
+    with sessions.begin() as session:
+        claim = claim_chunk(session, "w", lease_seconds=60)
+    assert claim is not None
+    with sessions.begin() as session:
+        assert release_chunk(session, claim, delay_seconds=0, refund_attempt=True)
+    with sessions.begin() as session:
+        chunk = session.get_one(BatchChunk, claim.chunk_id)
+        assert (chunk.state, chunk.attempts, chunk.lease_token) == ("pending", 0, None)
+        assert not release_chunk(session, claim, delay_seconds=0)  # not ours any more
+
+
+def test_concurrent_claimers_skip_each_others_rows(make_pipeline, database_url):
+    """PostgreSQL: a claimer does not wait on a row another open transaction has locked."""
+    if not database_url.startswith("postgresql"):
+        pytest.skip("SKIP LOCKED is PostgreSQL's; SQLite serialises claimers instead")
+    pipe = make_pipeline(chunk_size=1)
+    pipe.submit(documents(3))
+    sessions = session_factory(pipe.settings.database_url)
+    first_session = sessions()
+    first = claim_chunk(first_session, "a", lease_seconds=60)  # transaction left open
+    claimed: list = []
+
+    def other() -> None:
+        with sessions.begin() as session:
+            claimed.append(claim_chunk(session, "b", lease_seconds=60))
+
+    thread = threading.Thread(target=other)
+    thread.start()
+    thread.join(10)
+    assert not thread.is_alive(), "the second claimer waited on the first one's lock"
+    first_session.commit()
+    first_session.close()
+    assert first is not None and claimed[0] is not None
+    assert claimed[0].chunk_id != first.chunk_id
