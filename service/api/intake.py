@@ -25,6 +25,7 @@ from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 from starlette.requests import Request
 
+from service.api.bodies import decode_json_object
 from service.api.problems import ProblemError
 from service.batches.documents import DocumentInvalid, InputDocument, parse_document
 from service.batches.lines import LineTooLong, numbered_lines
@@ -141,24 +142,8 @@ class Intake:
         raw = bytearray()
         async for chunk in self._chunks:
             raw += chunk
-        try:
-            text = raw.decode("utf-8")
-        except UnicodeDecodeError as exc:
-            raise ProblemError(
-                400, f"the body is not UTF-8 (byte {exc.start})", kind="bad-encoding"
-            ) from None
+        data = decode_json_object(raw, "an object with 'inventory' and 'documents'")
         del raw
-        try:
-            data = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise ProblemError(
-                400,
-                f"the body is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}",
-                kind="malformed-json",
-            ) from None
-        del text
-        if not isinstance(data, dict):
-            raise ProblemError(422, "the body must be an object with 'inventory' and 'documents'")
         unknown = sorted(set(data) - HEADER_MEMBERS - {"documents"})
         if unknown:
             raise ProblemError(422, f"unknown member(s): {', '.join(unknown)}")

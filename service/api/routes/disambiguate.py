@@ -8,13 +8,13 @@ first request after a change pays for building it.
 
 from __future__ import annotations
 
-import json
 from typing import Any
 
 from fastapi import APIRouter, Depends, Request
 from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 
+from service.api.bodies import decode_json_object
 from service.api.deps import Caller, get_session, get_settings_dep, ingest_key
 from service.api.intake import parse_options
 from service.api.problems import ProblemError
@@ -47,20 +47,7 @@ _BODY = {
 
 
 def _parse(raw: bytes, settings: Settings) -> tuple[str, list[InputDocument], dict[str, Any]]:
-    try:
-        data = json.loads(raw.decode("utf-8"))
-    except UnicodeDecodeError as exc:
-        raise ProblemError(
-            400, f"the body is not UTF-8 (byte {exc.start})", kind="bad-encoding"
-        ) from None
-    except json.JSONDecodeError as exc:
-        raise ProblemError(
-            400,
-            f"the body is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}",
-            kind="malformed-json",
-        ) from None
-    if not isinstance(data, dict):
-        raise ProblemError(422, "the body must be an object with 'inventory' and 'documents'")
+    data = decode_json_object(raw, "an object with 'inventory' and 'documents'")
     unknown = sorted(set(data) - {"inventory", "documents", "options"})
     if unknown:
         raise ProblemError(422, f"unknown member(s): {', '.join(unknown)}")

@@ -6,7 +6,6 @@ and a whole-document validation; reads of old versions come from snapshots.
 
 from __future__ import annotations
 
-import json
 from typing import Any
 
 from fastapi import APIRouter, Depends, Request, Response
@@ -14,6 +13,7 @@ from fastapi.responses import JSONResponse
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service.api.bodies import decode_json_object, decode_utf8
 from service.api.deps import admin_key, any_key, get_session
 from service.api.problems import ProblemError
 from service.api.schemas import (
@@ -62,29 +62,13 @@ async def _read_document(request: Request, name: str | None) -> dict[str, Any]:
     """The inventory document in the body: JSON, or CSV (then `name` comes from the URL)."""
     media = request.headers.get("content-type", "application/json").split(";")[0].strip()
     raw = await request.body()
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        raise ProblemError(
-            400, f"the body is not UTF-8 (byte {exc.start})", kind="bad-encoding"
-        ) from None
     if media == "text/csv":
         if not name:
             raise ProblemError(422, "a CSV inventory needs ?name=<inventory name>")
-        return read_inventory_csv(text, name)
+        return read_inventory_csv(decode_utf8(raw), name)
     if media not in ("application/json", "application/*+json"):
         raise ProblemError(415, f"send application/json or text/csv, not {media}")
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise ProblemError(
-            400,
-            f"the body is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}",
-            kind="malformed-json",
-        ) from None
-    if not isinstance(data, dict):
-        raise ProblemError(422, "an inventory document is a JSON object")
-    return data
+    return decode_json_object(raw, "an inventory document (a JSON object)")
 
 
 def _export(document: dict[str, Any], request: Request) -> Response:
