@@ -37,7 +37,7 @@ class Settings(BaseSettings):
         default=0.6, ge=0.0, le=1.0, description="Default review threshold for new inventories."
     )
     abstain_threshold: float = Field(
-        default=0.15,
+        default=0.25,
         ge=-1.0,
         le=1.0,
         description="Default cosine similarity under which no sense is assigned.",

@@ -5,6 +5,10 @@ softmax(similarities / T) minimises the negative log-likelihood of held-out
 labels. Candidate sets differ in size from term to term, so inputs are lists
 of 1-D similarity arrays with the index of the right sense in each.
 
+Leave-one-out rows rebuild the held-out item's prototype with the same blend
+(PrototypeBook.prototype, evidence weight n/(n+k)) that scoring uses, so a
+refit follows any change of the prototype rule.
+
 Expected calibration error uses equal-width confidence bins (Naeini et al.
 2015; Guo et al. 2017): sum over bins of |accuracy - mean confidence| weighted
 by the bin's share of instances.
@@ -170,7 +174,7 @@ class CalibrationReport:
 
 
 def leave_one_out_similarities(
-    book: PrototypeBook, *, sense_prior: bool = True
+    book: PrototypeBook, *, sense_prior: bool = False
 ) -> tuple[list[np.ndarray], list[int], list[np.ndarray]]:
     """For every labeled evidence item of a multi-sense term: its similarities to the term's
     prototypes rebuilt without it, its sense's index, and the sense prior without it
@@ -208,9 +212,12 @@ def calibrate_book(
     default_temperature: float,
     n_bins: int = 10,
     *,
-    sense_prior: bool = True,
+    sense_prior: bool = False,
 ) -> CalibrationReport:
-    """Fit an inventory's temperature on its own labeled evidence, leave-one-out."""
+    """Fit an inventory's temperature on its own labeled evidence, leave-one-out.
+
+    `sense_prior` must match the Disambiguator's (both off by default), so the
+    fitted temperature fits the rows assign() sees."""
     rows, gold, priors = leave_one_out_similarities(book, sense_prior=sense_prior)
     if not rows:
         raise ValueError("no labeled evidence on terms with two or more senses")

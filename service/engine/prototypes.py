@@ -6,14 +6,28 @@ example sentences. Its *evidence* part is the mean of labeled occurrences
 (corpus labels, review decisions, imports). The prototype mixes the two with
 weight n/(n+k) on the evidence, n the number of labels: a curator's gloss
 carries an unlabeled sense, and real usage takes over as labels accumulate.
-k = DEFAULT_EVIDENCE_PRIOR was chosen on a SemCor development slice (see
-.coord/engine-notes.md).
+
+k = DEFAULT_EVIDENCE_PRIOR = 4 rather than 1: contextual vectors of one word
+form all lie close together (anisotropy), so a prototype made mostly of
+evidence drifts towards *every* occurrence of the term, while a sense still
+carrying its gloss vector (a sentence-level vector in a lower cosine band)
+falls behind; with k = 1 a few labels per sense were enough to pull a curated
+inventory's occurrences towards the best-labeled senses (hubness), and the
+demo inventory lost accuracy as evidence was added. k = 4 keeps the definition
+in charge until a sense has several labels: on the demo's inner split evidence
+then helps (0.810 -> 0.820) instead of hurting (-> 0.795), and SemCor dev is
+unchanged (0.677 -> 0.679 with document consistency). Scoring gloss and
+contexts separately, per-term centring and nearest-item scoring were measured
+too and did no better on both sets (DEVELOPERS.md, "Measurements").
 
 Evidence counts also give each term a sense prior, p(s) = (n_s + a) / (N + S a)
 (add-a smoothing, a = DEFAULT_PRIOR_SMOOTHING): without labels it is uniform,
 with them it says how often each sense turns up in the curator's data. a = 4
 rather than 1 because it held up better when the labels came from other
-genres than the text (SemCor cross-genre check in .coord/engine-notes.md).
+genres than the text (SemCor cross-genre check in DEVELOPERS.md, "Measurements").
+The Disambiguator leaves it off by default: it helped only inside SemCor and
+cost accuracy on SemEval-2013 and on the demo inventory, whose labels need
+not follow the frequencies of the documents being tagged.
 
 The book keeps per-sense sums and counts, so adding evidence encodes only the
 new items and updates a few rows; it also keeps each item's vector (unless told
@@ -34,7 +48,7 @@ from .errors import InventoryError, UnknownTerm
 from .occurrences import OccurrenceFinder
 from .types import Evidence, InventorySpec
 
-DEFAULT_EVIDENCE_PRIOR = 1.0
+DEFAULT_EVIDENCE_PRIOR = 4.0
 DEFAULT_PRIOR_SMOOTHING = 4.0
 ItemKind = Literal["gloss", "example", "evidence"]
 

@@ -43,7 +43,7 @@ class InventorySettings:
     """Per-inventory decision settings; the temperature comes from calibration."""
 
     review_threshold: float = 0.6
-    abstain_threshold: float = 0.15
+    abstain_threshold: float = 0.25  # RECOMMENDED_ABSTAIN_THRESHOLD, measured
     temperature: float | None = None
 
 

@@ -18,7 +18,7 @@ Each candidate sense k of an occurrence vector x (unit length) gets
   brings to an ambiguous word.
 
 The defaults were chosen on held-out SemCor documents; the measurements are
-in .coord/benchmark-results.md.
+in DEVELOPERS.md, "Measurements".
 """
 
 from __future__ import annotations

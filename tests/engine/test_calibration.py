@@ -115,8 +115,13 @@ def test_leave_one_out_equals_rebuilding_without_the_item():
     vectors = rng.normal(size=(6, 3))
     vectors /= np.linalg.norm(vectors, axis=1, keepdims=True)
     senses = ["f", "f", "m", "m", "f", "m"]
-    rows, gold, priors = leave_one_out_similarities(book_with_evidence(vectors, senses))
+    book = book_with_evidence(vectors, senses)
+    rows, gold, priors = leave_one_out_similarities(book, sense_prior=True)
     assert gold == [0 if s == "f" else 1 for s in senses]
+    # The prior is off by default, as in the Disambiguator: rows are the same, priors zero.
+    plain_rows, _, plain_priors = leave_one_out_similarities(book)
+    np.testing.assert_allclose(plain_rows, rows)
+    assert all(not p.any() for p in plain_priors)
     for i in range(6):
         keep = [j for j in range(6) if j != i]
         rebuilt = book_with_evidence(vectors[keep], [senses[j] for j in keep])

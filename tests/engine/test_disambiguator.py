@@ -21,7 +21,7 @@ from service.engine.types import (
     TermSpec,
 )
 
-FORMATS = Path(__file__).resolve().parents[2] / ".coord" / "FORMATS.md"
+README = Path(__file__).resolve().parents[2] / "README.md"
 RESULT_KEYS = {
     "document_id", "field", "occurrence_index", "start", "end", "surface", "term", "sense_id",
     "tags", "confidence", "margin", "status", "candidates", "rationale", "inventory_version",
@@ -48,9 +48,10 @@ def tagged(disambiguator):
 
 
 def test_result_keys_are_those_of_the_interchange_format(tagged):
-    if FORMATS.is_file():  # the format document lists the keys of a result object
-        block = FORMATS.read_text().split("## Result")[1].split("## ")[0]
-        assert set(re.findall(r'"([a-z_]+)":', block)) >= RESULT_KEYS
+    # The README documents the result object; its example must show every key.
+    block = README.read_text(encoding="utf-8").split("## What a result looks like")[1]
+    block = block.split("\n## ")[0]
+    assert set(re.findall(r'"([a-z_]+)":', block)) >= RESULT_KEYS
     for result in tagged[0].occurrences:
         data = json.loads(json.dumps(result.to_json()))
         assert set(data) == RESULT_KEYS
