@@ -44,7 +44,7 @@ SMALL_INVENTORY: dict[str, Any] = {
                 {
                     "id": "bass.music",
                     "gloss": "the lowest range of musical sound, or the instrument that plays it",
-                    "examples": ["Turn the bass down on the speaker, the windows rattle."],
+                    "examples": ["Turn the bass down on that speaker, the windows rattle."],
                     "tags": ["dept:music"],
                 },
             ],
