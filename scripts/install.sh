@@ -19,7 +19,8 @@ fi
 PYTHON=${PYTHON:-python3}
 [ -x .venv/bin/python ] || "$PYTHON" -m venv .venv
 .venv/bin/python -m pip install -q --upgrade pip
-# The CPU build: an unpinned torch would pull a multi-gigabyte CUDA build.
-.venv/bin/python -m pip install -q "torch==2.13.0"
+# The CPU build: an unpinned torch would pull a multi-gigabyte CUDA build. Where the CPU wheel
+# is not already offered by the host's package index, set TORCH_INDEX_URL to PyTorch's CPU index.
+.venv/bin/python -m pip install -q "torch==2.13.0" ${TORCH_INDEX_URL:+--index-url "$TORCH_INDEX_URL"}
 .venv/bin/python -m pip install -q -e ".[test]"
 echo "whichsense installed in .venv ($(.venv/bin/whichsense --version))"

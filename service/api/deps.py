@@ -58,7 +58,11 @@ def require_scope(needed: Scope | None) -> Callable[..., Caller]:
             raise ProblemError(
                 403, f"this route needs scope '{needed}'; the key has scope '{key.scope}'"
             )
-        return Caller(key.key_id, key.scope, key.signing_secret)
+        caller = Caller(key.key_id, key.scope, key.signing_secret)
+        # End the lookup's transaction now: on SQLite it holds the single write lock,
+        # which must not stay taken while a route waits for a slow request body.
+        session.rollback()
+        return caller
 
     return dependency
 

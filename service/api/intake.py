@@ -17,9 +17,10 @@ from __future__ import annotations
 
 import hashlib
 import json
+import tempfile
 from collections.abc import AsyncIterator
 from dataclasses import dataclass, field
-from typing import Any
+from typing import IO, Any
 
 from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
@@ -89,6 +90,17 @@ class IdempotencyClash(Exception):
     """Another submission with the same key was stored while this one was read."""
 
 
+SPOOL_IN_MEMORY = 8 * 1024 * 1024
+
+
+async def _read_spool(spool: IO[bytes]) -> AsyncIterator[bytes]:
+    try:
+        while chunk := spool.read(64 * 1024):
+            yield chunk
+    finally:
+        spool.close()
+
+
 class Intake:
     """One submission's path into the database (see the module docstring)."""
 
@@ -122,6 +134,22 @@ class Intake:
         async for chunk in stream:
             self.digest.update(chunk)
             yield chunk
+
+    async def spool_for_single_writer(self) -> None:
+        """On SQLite, read the whole body before touching the database.
+
+        Every SQLite transaction takes the one write lock (BEGIN IMMEDIATE), so
+        streaming a slow upload inside the transaction would stall the worker's
+        claims and heartbeats for as long as the client takes. The body (at most
+        `max_request_bytes`) goes to a temporary file, memory up to SPOOL_IN_MEMORY.
+        """
+        if self.session.get_bind().dialect.name != "sqlite":
+            return
+        spool = tempfile.SpooledTemporaryFile(max_size=SPOOL_IN_MEMORY)  # noqa: SIM115
+        async for chunk in self._chunks:
+            spool.write(chunk)
+        spool.seek(0)
+        self._chunks = _read_spool(spool)
 
     async def drain(self) -> str:
         """Read (and hash) whatever is left of the body; the request digest."""

@@ -26,7 +26,9 @@ def decode_cursor(cursor: str, size: int) -> tuple[int, ...]:
     if (
         not isinstance(values, list)
         or len(values) != size
-        or not all(isinstance(v, int) and not isinstance(v, bool) for v in values)
+        or not all(
+            isinstance(v, int) and not isinstance(v, bool) and 0 <= v < 2**63 for v in values
+        )
     ):
         raise CursorInvalid("the cursor is not one this service issued")
     return tuple(values)

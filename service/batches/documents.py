@@ -1,12 +1,13 @@
 """Submitted documents: validated once at the door, then trusted by the worker.
 
-A document is `{"id", "text"?, "fields"?, "metadata"?}` (see FORMATS.md). Its
+A document is `{"id", "text"?, "fields"?, "metadata"?}` (see the README's Formats section). Its
 size is the UTF-8 length of its text fields, which is what the engine reads;
 metadata is carried as is and bounded only by the request size.
 """
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 from typing import Any
 
@@ -46,6 +47,13 @@ class InputDocument:
 
 def parse_document(data: Any, *, max_document_bytes: int) -> InputDocument:
     """Validate one decoded JSON value as a document; DocumentInvalid says what is wrong."""
+    try:  # JSON's \uXXXX escapes can smuggle in lone surrogates, which no store accepts
+        json.dumps(data, ensure_ascii=False).encode("utf-8")
+    except UnicodeEncodeError as exc:
+        raise DocumentInvalid(
+            f"the document contains an unpaired surrogate (position {exc.start} of its JSON); "
+            "text must be valid Unicode"
+        ) from None
     if not isinstance(data, dict):
         raise DocumentInvalid("a document is a JSON object")
     unknown = sorted(set(data) - ALLOWED_MEMBERS)

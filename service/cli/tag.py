@@ -22,6 +22,7 @@ from typing import IO, Any, BinaryIO
 
 from tqdm import tqdm
 
+from service.batches.documents import parse_document
 from service.engine.errors import DocumentTooLarge
 from service.engine.types import Document, Evidence, InventorySpec
 
@@ -66,32 +67,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 
 def document_from_json(data: Any) -> Document:
-    """A Document from one parsed input line; raises ValueError saying what is wrong."""
-    if not isinstance(data, dict):
-        raise ValueError("a document must be a JSON object")
-    doc_id = data.get("id")
-    if isinstance(doc_id, bool) or not isinstance(doc_id, str | int) or doc_id == "":
-        raise ValueError("'id' must be a non-empty string")
-    fields: list[tuple[str, str]] = []
-    if "text" in data:
-        if not isinstance(data["text"], str):
-            raise ValueError("'text' must be a string")
-        fields.append(("text", data["text"]))
-    extra = data.get("fields", {})
-    if not isinstance(extra, dict):
-        raise ValueError("'fields' must be an object of strings")
-    for name, value in extra.items():
-        if not isinstance(value, str):
-            raise ValueError(f"field {name!r} must be a string")
-        if name == "text" and "text" in data:
-            raise ValueError("'text' given both at top level and in 'fields'")
-        fields.append((name, value))
-    if not fields:
-        raise ValueError("a document needs 'text' or at least one entry in 'fields'")
-    metadata = data.get("metadata", {})
-    if not isinstance(metadata, dict):
-        raise ValueError("'metadata' must be an object")
-    return Document(doc_id=str(doc_id), fields=tuple(fields), metadata=tuple(metadata.items()))
+    """A Document from one parsed input line, by the batch API's rules (DocumentInvalid if not).
+
+    The size limit is left to the engine's own check, which the caller runs.
+    """
+    return parse_document(data, max_document_bytes=sys.maxsize).to_engine()
 
 
 def read_documents(
@@ -108,6 +88,7 @@ def read_documents(
     stderr, counted in `problems` and left out. `check(document)` may raise
     DocumentTooLarge, handled the same way.
     """
+    first_seen: dict[str, int] = {}
     for line_number, raw in enumerate(handle, start=1):
         if progress is not None:
             progress.update(len(raw))
@@ -128,8 +109,14 @@ def read_documents(
                 ) from None
             try:
                 document = document_from_json(data)
+                if document.doc_id in first_seen:
+                    raise ValueError(
+                        f"duplicate id {document.doc_id!r} (first on line "
+                        f"{first_seen[document.doc_id]})"
+                    )
                 if check is not None:
                     check(document)
+                first_seen[document.doc_id] = line_number
             except DocumentTooLarge as exc:
                 raise InputLineError(source, line_number, str(exc)) from None
             except ValueError as exc:

@@ -1,8 +1,9 @@
 """Reading a batch's output: results pages, per-document summaries, failed documents.
 
 Every listing is keyset-paginated on positions that never move (document
-position, then result id), so a client paging while workers append neither
-skips nor repeats a row.
+position, then result id), so pages never repeat a row. Chunks finish out of
+order, though: while a batch is running, a result can land behind a cursor
+already passed. Page a finished batch for a complete read (the README says so).
 """
 
 from __future__ import annotations

@@ -34,7 +34,7 @@ class IssuedKey:
 
 
 def _hash(secret: str) -> str:
-    return hashlib.sha256(secret.encode("ascii")).hexdigest()
+    return hashlib.sha256(secret.encode("utf-8", "surrogatepass")).hexdigest()
 
 
 def grants(held: str, needed: Scope) -> bool:

@@ -81,6 +81,16 @@ def record_webhook_attempt(
     ).one_or_none()
     if batch is None:
         return
+    if delivered and batch.webhook_state != "delivered":
+        batch.webhook_state = "delivered"  # a success always counts, even from a late attempt
+        batch.webhook_next_attempt_at = None
+        session.flush()
+        return
+    if batch.webhook_state != "pending" or batch.webhook_attempts != due.attempt:
+        # Another worker claimed a later attempt (or the delivery ended) while this one was
+        # slow: its failure is logged above but must not reschedule or overwrite the state.
+        session.flush()
+        return
     if delivered:
         batch.webhook_state = "delivered"
         batch.webhook_next_attempt_at = None

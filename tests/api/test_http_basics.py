@@ -21,6 +21,8 @@ def test_missing_and_unknown_keys_are_401_with_a_challenge(client):
     assert response.headers["www-authenticate"] == "Bearer"
     assert_problem(client.get("/v1/inventories", headers=bearer("ws_nope_nope")), 401)
     assert_problem(client.get("/v1/inventories", headers={"Authorization": "Basic abc"}), 401)
+    non_ascii = {"Authorization": "Bearer ws_abc_caf\u00e9".encode("latin-1")}
+    assert_problem(client.get("/v1/inventories", headers=non_ascii), 401)
 
 
 def test_wrong_scope_is_403(client, api_keys, inventory_document):

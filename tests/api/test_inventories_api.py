@@ -201,12 +201,14 @@ def test_streamed_oversize_body_without_length_is_413(client, api_keys, settings
         for _ in range(30):
             yield b" " * 10_000
 
+    before = _row_counts(settings)
     response = client.post(
         "/v1/inventories",
         content=chunks(),
         headers={**bearer(api_keys["admin"]), "Content-Type": "application/json"},
     )
-    assert_problem(response, 413)
+    assert assert_problem(response, 413)["limit"] == "max_request_bytes"
+    assert _row_counts(settings) == before
 
 
 def test_published_schema_is_valid_json_schema(client, api_keys, inventory_document):
@@ -233,7 +235,10 @@ def test_evidence_is_added_whole_or_not_at_all(client, api_keys, inventory_docum
     response = client.post(
         "/v1/inventories/tiny-shop/evidence", json={"occurrences": [good, bad]}, headers=admin
     )
-    assert "bass.nonexistent" in assert_problem(response, 409)["detail"]
+    body = assert_problem(response, 422)
+    assert body["errors"] == [
+        {"pointer": "/occurrences/1/sense", "detail": "'bass.nonexistent' is not a sense of 'bass'"}
+    ]
     counts = client.get("/v1/inventories/tiny-shop/evidence", headers=admin).json()
     assert counts == {"per_sense": {}, "watermark": 0}
     out_of_range = {**good, "end": 99}
@@ -243,7 +248,7 @@ def test_evidence_is_added_whole_or_not_at_all(client, api_keys, inventory_docum
             json={"occurrences": [out_of_range]},
             headers=admin,
         ),
-        409,
+        422,
     )
     response = client.post(
         "/v1/inventories/tiny-shop/evidence", json={"occurrences": [good, good]}, headers=admin

@@ -55,6 +55,13 @@ def test_result_filters(pipeline):
         f"/v1/batches/{batch['id']}/results?cursor=bm90LWEtY3Vyc29y", headers=pipeline.ingest
     )
     assert_problem(forged, 422)
+    from service.batches.cursors import encode_cursor
+
+    huge = encode_cursor(2**70, 1)
+    overflow = pipeline.client.get(
+        f"/v1/batches/{batch['id']}/results?cursor={huge}", headers=pipeline.ingest
+    )
+    assert_problem(overflow, 422)
 
 
 def test_results_as_an_ndjson_stream(pipeline):

@@ -194,6 +194,9 @@ def test_bad_json_bodies(pipeline):
         headers=headers,
     )
     assert "fast" in assert_problem(bad_option, 422)["detail"]
+    surrogate = b'{"inventory": "tiny-shop", "documents": [{"id": "s", "text": "bass \\ud800"}]}'
+    problem = assert_problem(post("/v1/batches", content=surrogate, headers=headers), 422)
+    assert "surrogate" in problem["detail"]
     assert _stored(pipeline.settings) == (0, 0, 0)
 
 

@@ -89,6 +89,8 @@ def test_cancellation_is_notified_too(make_pipeline, receiver):
         ("http://169.254.10.1/hook", "link-local"),
         ("http://[fe80::1]/hook", "link-local"),
         ("http://[::ffff:169.254.169.254]/hook", "metadata"),
+        ("http://[2002:a9fe:a9fe::1]/hook", "metadata"),  # 6to4 wrapping of the metadata IP
+        ("http://[2002:7f00:1::1]/hook", "loopback"),  # 6to4 wrapping of 127.0.0.1
         ("ftp://example.com/hook", "http or https"),
         ("file:///etc/passwd", "http or https"),
         ("http://127.0.0.1:9/hook", "loopback"),

@@ -62,7 +62,7 @@ def line(obj) -> bytes:
 GOOD = [
     line({"id": "a", "text": "We caught a bass in the lake.", "metadata": {"k": 1}}),
     line({"id": "b", "fields": {"title": "Lantern 😀 sale", "body": "One lantern, one bass."}}),
-    line({"id": 7, "text": "No terms here."}),
+    line({"id": "7", "text": "No terms here."}),
 ]
 
 
@@ -127,10 +127,21 @@ def test_documents_are_read_one_line_at_a_time():
     assert pulled == [0]
 
 
+def test_duplicate_ids_are_refused_with_both_lines(tmp_path):
+    lines = [b'{"id": "a", "text": "bass"}\n', b'{"id": "b", "text": "x"}\n',
+             b'{"id": "a", "text": "again"}\n']
+    stream = tag.read_documents(iter(lines), "docs", "fail", Counter())
+    assert [d.doc_id for d in (next(stream), next(stream))] == ["a", "b"]
+    with pytest.raises(tag.InputLineError, match="duplicate id 'a' \\(first on line 1\\)"):
+        next(stream)
+
+
 def test_document_json_rules():
     document = tag.document_from_json({"id": "a", "text": "t", "fields": {"title": "x"}})
     assert document.fields == (("text", "t"), ("title", "x"))
     for bad in ({"id": "a"}, {"id": "", "text": "t"}, {"id": "a", "text": 3},
-                {"id": "a", "fields": {"title": 1}}, ["not", "an", "object"]):
+                {"id": "a", "fields": {"title": 1}}, ["not", "an", "object"],
+                {"id": 7, "text": "t"}, {"id": "a", "text": "t", "fields": {"text": "again"}},
+                {"id": "a", "txt": "t"}):
         with pytest.raises(ValueError):
             tag.document_from_json(bad)

@@ -117,6 +117,7 @@ async def submit_batch(
 ) -> JSONResponse:
     key = _check_idempotency_key(idempotency_key)
     intake = Intake(request, session, settings, key_id=caller.key_id, idempotency_key=key)
+    await intake.spool_for_single_writer()
     if key is not None:
         existing = await run_in_threadpool(
             batches.find_by_idempotency_key, session, caller.key_id, key

@@ -9,9 +9,10 @@ from pydantic import BaseModel, Field
 from sqlalchemy.orm import Session
 
 from service.api.deps import admin_key, any_key, get_session
-from service.engine.types import Evidence
+from service.api.problems import ProblemError
+from service.engine.types import Evidence, InventorySpec
 from service.store import evidence as evidence_repo
-from service.store.inventories import get_inventory
+from service.store.inventories import get_inventory, load_inventory_spec
 
 router = APIRouter(prefix="/v1", tags=["evidence"])
 
@@ -37,7 +38,8 @@ def add_evidence(
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> dict[str, int]:
-    """Add labeled occurrences; all or nothing (an unknown sense refuses the whole body)."""
+    """Add labeled occurrences; all or nothing (one bad item refuses the whole body)."""
+    _check_against_inventory(load_inventory_spec(session, name), body.occurrences)
     added = evidence_repo.add_evidence(
         session,
         name,
@@ -48,6 +50,38 @@ def add_evidence(
     )
     session.commit()
     return {"added": added}
+
+
+def _check_against_inventory(spec: InventorySpec, items: list[LabeledOccurrenceIn]) -> None:
+    """422 naming every item whose term, sense or offsets do not fit the inventory."""
+    senses = {term.term: {s.sense_id for s in term.senses} for term in spec.terms}
+    errors = []
+    for index, item in enumerate(items):
+        if item.term not in senses:
+            errors.append(
+                {
+                    "pointer": f"/occurrences/{index}/term",
+                    "detail": f"'{item.term}' is not a term of inventory '{spec.name}'",
+                }
+            )
+        elif item.sense not in senses[item.term]:
+            errors.append(
+                {
+                    "pointer": f"/occurrences/{index}/sense",
+                    "detail": f"'{item.sense}' is not a sense of '{item.term}'",
+                }
+            )
+        if not item.start < item.end <= len(item.text):
+            errors.append(
+                {
+                    "pointer": f"/occurrences/{index}/end",
+                    "detail": f"offsets {item.start}..{item.end} fall outside the text",
+                }
+            )
+    if errors:
+        raise ProblemError(
+            422, f"{len(errors)} labeled occurrence problem(s); nothing was stored", errors=errors
+        )
 
 
 @router.get("/inventories/{name}/evidence")

@@ -60,13 +60,13 @@ def _summary(session: Session, inventory: Inventory) -> InventorySummary:
 
 async def _read_document(request: Request, name: str | None) -> dict[str, Any]:
     """The inventory document in the body: JSON, or CSV (then `name` comes from the URL)."""
-    media = request.headers.get("content-type", "application/json").split(";")[0].strip()
+    media = request.headers.get("content-type", "application/json").split(";")[0].strip().lower()
     raw = await request.body()
     if media == "text/csv":
         if not name:
             raise ProblemError(422, "a CSV inventory needs ?name=<inventory name>")
         return read_inventory_csv(decode_utf8(raw), name)
-    if media not in ("application/json", "application/*+json"):
+    if media != "application/json" and not media.endswith("+json"):
         raise ProblemError(415, f"send application/json or text/csv, not {media}")
     return decode_json_object(raw, "an inventory document (a JSON object)")
 
