@@ -28,6 +28,11 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--corpus", type=Path, default=Path("demo_corpus"))
     parser.add_argument("--weights", default="0.25,1,4,16,64")
+    parser.add_argument(
+        "--consistency",
+        action="store_true",
+        help="instead: document consistency on/off, labels of one document sharing evidence",
+    )
     args = parser.parse_args()
     spec = parse_inventory_document(
         json.loads((args.corpus / "inventory.json").read_text(encoding="utf-8"))
@@ -41,11 +46,15 @@ def main() -> None:
         Evidence(i + 1, x["term"], x["sense"], x["text"], x["start"], x["end"], "import")
         for i, x in enumerate(train)
     ]
-    queries = [SpanQuery(x["text"], x["start"], x["end"], x["term"], document_id=x["id"])
-               for x in score]
+    queries = [
+        SpanQuery(x["text"], x["start"], x["end"], x["term"], document_id=x["id"]) for x in score
+    ]
     encoder = ContextEncoder()
     vectors = encoder.encode_spans([(e.text, e.start, e.end) for e in evidence])
     print(f"evidence {len(evidence)}, scored {len(queries)}")
+    if args.consistency:
+        _compare_consistency(encoder, spec, evidence, vectors, score)
+        return
     base = PrototypeBook.build(encoder, spec)
     for prior in (False, True):
         d = Disambiguator(encoder, spec, prototypes=base, sense_prior=prior)
@@ -61,6 +70,22 @@ def main() -> None:
             results = d.classify_spans(queries)
             hits = sum(r.sense_id == x["sense"] for r, x in zip(results, score, strict=True))
             print(f"evidence k={weight:<8g}  prior={prior!s:5}  accuracy {hits / len(score):.3f}")
+
+
+def _compare_consistency(encoder, spec, evidence, vectors, score) -> None:  # type: ignore[no-untyped-def]
+    """Accuracy with and without one-sense-per-discourse sharing within each document."""
+    from service.engine import DEFAULT_CONSISTENCY_WEIGHT
+
+    queries = [
+        SpanQuery(x["text"], x["start"], x["end"], x["term"], document_id=x["document_id"])
+        for x in score
+    ]
+    book = PrototypeBook.build(encoder, spec, evidence, evidence_vectors=vectors)
+    for weight in (0.0, DEFAULT_CONSISTENCY_WEIGHT):
+        d = Disambiguator(encoder, spec, prototypes=book, consistency_weight=weight)
+        results = d.classify_spans(queries)
+        hits = sum(r.sense_id == x["sense"] for r, x in zip(results, score, strict=True))
+        print(f"consistency weight {weight:<4g} accuracy {hits / len(score):.3f}")
 
 
 if __name__ == "__main__":
