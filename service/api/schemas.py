@@ -74,3 +74,23 @@ class VersionInfo(BaseModel):
 class ExampleOut(BaseModel):
     index: int
     text: str
+
+
+_OPTIONS_SCHEMA = {
+    "type": "object",
+    "properties": {"rationale": {"type": "boolean", "default": True}},
+}
+
+
+def documents_body_schema(**more_properties: dict) -> dict:
+    """OpenAPI schema of a JSON body carrying an inventory name and documents."""
+    return {
+        "type": "object",
+        "required": ["inventory", "documents"],
+        "properties": {
+            "inventory": {"type": "string"},
+            "documents": {"type": "array", "items": {"type": "object"}},
+            "options": _OPTIONS_SCHEMA,
+            **more_properties,
+        },
+    }

@@ -20,6 +20,7 @@ from service.api import queue_metrics
 from service.api.deps import Caller, any_key, get_session, get_settings_dep, ingest_key
 from service.api.intake import IdempotencyClash, Intake
 from service.api.problems import ProblemError
+from service.api.schemas import documents_body_schema
 from service.batches.cursors import CursorInvalid, decode_cursor, encode_cursor
 from service.batches.status import status_document
 from service.config import Settings
@@ -41,19 +42,7 @@ _SUBMIT_BODY = {
         "required": True,
         "content": {
             "application/json": {
-                "schema": {
-                    "type": "object",
-                    "required": ["inventory", "documents"],
-                    "properties": {
-                        "inventory": {"type": "string"},
-                        "documents": {"type": "array", "items": {"type": "object"}},
-                        "callback_url": {"type": "string", "format": "uri"},
-                        "options": {
-                            "type": "object",
-                            "properties": {"rationale": {"type": "boolean", "default": True}},
-                        },
-                    },
-                }
+                "schema": documents_body_schema(callback_url={"type": "string", "format": "uri"})
             },
             NDJSON: {
                 "schema": {

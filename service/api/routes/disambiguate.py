@@ -18,6 +18,7 @@ from service.api.bodies import decode_json_object
 from service.api.deps import Caller, get_session, get_settings_dep, ingest_key
 from service.api.intake import parse_options
 from service.api.problems import ProblemError
+from service.api.schemas import documents_body_schema
 from service.batches.documents import DocumentInvalid, InputDocument, parse_document
 from service.config import Settings
 from service.store.evidence import evidence_watermark
@@ -29,19 +30,7 @@ router = APIRouter(prefix="/v1", tags=["disambiguate"])
 _BODY = {
     "requestBody": {
         "required": True,
-        "content": {
-            "application/json": {
-                "schema": {
-                    "type": "object",
-                    "required": ["inventory", "documents"],
-                    "properties": {
-                        "inventory": {"type": "string"},
-                        "documents": {"type": "array", "items": {"type": "object"}},
-                        "options": {"type": "object"},
-                    },
-                }
-            }
-        },
+        "content": {"application/json": {"schema": documents_body_schema()}},
     }
 }
 
