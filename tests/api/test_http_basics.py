@@ -105,3 +105,15 @@ def test_docs_are_served_without_a_cdn(client):
     spec = client.get("/openapi.json").json()
     assert "InventoryDocument" in spec["components"]["schemas"]
     assert "/v1/inventories" in spec["paths"]
+
+
+def test_openapi_document_is_valid_openapi_3_1(client):
+    # Reference validator: openapi-spec-validator, against the OpenAPI 3.1 specification.
+    from openapi_spec_validator import validate
+
+    spec = client.get("/openapi.json").json()
+    assert spec["openapi"].startswith("3.1")
+    validate(spec)
+    assert {"/v1/batches", "/v1/disambiguate", "/v1/inventories/{name}/evidence"} <= set(
+        spec["paths"]
+    )
