@@ -25,14 +25,11 @@ from tqdm import tqdm
 from service.batches.documents import parse_document
 from service.engine.errors import DocumentTooLarge
 from service.engine.types import Document, Evidence, InventorySpec
+from service.line_errors import LineError
 
 
-class InputLineError(ValueError):
+class InputLineError(LineError):
     """A line of the input cannot be tagged; says which line and why."""
-
-    def __init__(self, source: str, line_number: int, problem: str) -> None:
-        super().__init__(f"{source}:{line_number}: {problem}")
-        self.line_number = line_number
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -54,9 +51,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         default="fail",
         help="on a bad input line: stop with no output (fail, default) or report and go on",
     )
-    parser.add_argument(
-        "--no-rationale", action="store_true", help="leave out rationales (faster)"
-    )
+    parser.add_argument("--no-rationale", action="store_true", help="leave out rationales (faster)")
     parser.add_argument(
         "--no-erasure",
         action="store_true",
@@ -208,9 +203,7 @@ def run(args: argparse.Namespace) -> int:
         with _input(args.docs) as (handle, size), _output(args.output) as out:
             progress = None
             if not args.no_progress:
-                progress = tqdm(
-                    total=size, unit="B", unit_scale=True, file=sys.stderr, desc="tag"
-                )
+                progress = tqdm(total=size, unit="B", unit_scale=True, file=sys.stderr, desc="tag")
             try:
                 stream = read_documents(
                     handle,
@@ -231,8 +224,10 @@ def run(args: argparse.Namespace) -> int:
                     progress.close()
     except InputLineError as exc:
         print(f"whichsense tag: {exc}", file=sys.stderr)
-        print("whichsense tag: stopped; no results written (use --on-error skip to go on)",
-              file=sys.stderr)
+        print(
+            "whichsense tag: stopped; no results written (use --on-error skip to go on)",
+            file=sys.stderr,
+        )
         return 1
     summary = ", ".join(f"{count} {status}" for status, count in sorted(statuses.items()))
     print(

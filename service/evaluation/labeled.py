@@ -14,13 +14,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from service.line_errors import LineError
 
-class LabeledFormatError(ValueError):
+
+class LabeledFormatError(LineError):
     """A line does not follow the labeled-occurrence format; names the line."""
-
-    def __init__(self, path: str, line_number: int, problem: str):
-        super().__init__(f"{path}:{line_number}: {problem}")
-        self.line_number = line_number
 
 
 @dataclass(frozen=True)

@@ -27,18 +27,15 @@ from typing import Any
 from nltk.corpus.reader.wordnet import WordNetCorpusReader
 
 from service.engine.types import Evidence, PartOfSpeech
+from service.line_errors import LineError
 from service.wordnet.senses import index_form, resolve_label, surface_form
 
 POS_LETTERS: frozenset[str] = frozenset({"n", "v", "a", "r"})
 MAX_UNRESOLVED_EXAMPLES = 20
 
 
-class CorpusFormatError(ValueError):
+class CorpusFormatError(LineError):
     """A line of the corpus file does not follow the format; names the line."""
-
-    def __init__(self, path: str, line_number: int, problem: str):
-        super().__init__(f"{path}:{line_number}: {problem}")
-        self.line_number = line_number
 
 
 @dataclass(frozen=True)
@@ -220,9 +217,7 @@ def is_corpus_line(obj: Any) -> bool:
     return isinstance(obj, dict) and "tokens" in obj and "instances" in obj
 
 
-def corpus_evidence(
-    sentences: Iterable[CorpusSentence], first_id: int = 1
-) -> Iterator[Evidence]:
+def corpus_evidence(sentences: Iterable[CorpusSentence], first_id: int = 1) -> Iterator[Evidence]:
     """One Evidence per instance, labeled with its first gold sense key.
 
     A second accepted key would pull two prototypes towards the same
