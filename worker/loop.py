@@ -1,4 +1,5 @@
-"""The worker's job loop: deliver due webhooks, claim a chunk, process it, repeat.
+"""The worker's job loop: deliver due webhooks, claim a chunk, process it, repeat; now
+and then purge batches past their team's retention.
 
 When there is nothing to do it sleeps `poll_seconds` (with jitter, so many
 workers do not poll in step). A database error never ends the loop: it is
@@ -13,20 +14,21 @@ import random
 import secrets
 import socket
 import threading
+import time
 from dataclasses import dataclass, field
 
 from sqlalchemy.orm import Session, sessionmaker
 
+from service.batches.leases import claim_chunk
+from service.batches.processing import ChunkProcessor, RetryPolicy
+from service.batches.repository import mark_running, purge_expired
+from service.batches.taggers import EngineTagger, Tagger
+from service.batches.webhooks.deliveries import claim_due_webhook, record_webhook_attempt
+from service.batches.webhooks.sending import WebhookPolicy, deliver
 from service.config import Settings
-from service.store.batches import mark_running
 from service.store.clock import database_now
 from service.store.database import session_factory
-from service.store.leases import claim_chunk
-from service.store.webhook_deliveries import claim_due_webhook, record_webhook_attempt
 from worker import metrics
-from worker.chunks import ChunkProcessor, RetryPolicy
-from worker.taggers import EngineTagger, Tagger
-from worker.webhooks import WebhookPolicy, deliver
 
 log = logging.getLogger(__name__)
 
@@ -39,6 +41,7 @@ class WorkerPolicy:
     heartbeat_seconds: float | None = None  # default: a third of the lease
     retry: RetryPolicy = field(default_factory=RetryPolicy)
     webhooks: WebhookPolicy = field(default_factory=WebhookPolicy)
+    retention_check_seconds: float = 300.0
 
 
 def default_name() -> str:
@@ -64,6 +67,7 @@ class Worker:
         self.tagger = tagger or EngineTagger(settings, self.sessions)
         self.policy = policy or WorkerPolicy()
         self.stop = stop or threading.Event()
+        self._retention_due = 0.0
         self.chunks = ChunkProcessor(
             settings,
             self.sessions,
@@ -71,6 +75,7 @@ class Worker:
             stop=self.stop,
             retry=self.policy.retry,
             heartbeat_seconds=self.policy.heartbeat_seconds,
+            meter=metrics.PrometheusMeter(),
         )
 
     def run(self) -> None:
@@ -91,10 +96,29 @@ class Worker:
 
     def run_once(self) -> bool:
         """Deliver one due webhook and process one chunk; True if there was anything to do."""
+        self.purge_expired_batches()
         delivered = self.deliver_one_webhook()
         if self.stop.is_set():
             return delivered
         return self.process_one_chunk() or delivered
+
+    def purge_expired_batches(self, *, force: bool = False) -> int:
+        """Every `retention_check_seconds`, delete the documents and results of finished
+        batches past their team's retention (counts stay; each purge is audited)."""
+        now = time.monotonic()
+        if not force and now < self._retention_due:
+            return 0
+        self._retention_due = now + self.policy.retention_check_seconds
+        total = 0
+        while True:
+            with self.sessions.begin() as session:
+                purged = purge_expired(session, database_now(session))
+            total += purged
+            if purged == 0 or self.stop.is_set():
+                break
+        if total:
+            log.info("purged %d batches past their team's retention", total)
+        return total
 
     def run_until_idle(self, max_rounds: int = 10_000) -> int:
         """Work until nothing is due (for tests and one-shot runs); rounds that did work."""

@@ -16,9 +16,9 @@ from dataclasses import dataclass
 import httpx
 
 from service import __version__
-from service.batches.signatures import SIGNATURE_HEADER, sign
-from service.batches.webhook_urls import WebhookUrlRefused, check_url
-from service.store.webhook_deliveries import DueWebhook
+from service.batches.webhooks.deliveries import DueWebhook
+from service.batches.webhooks.signatures import SIGNATURE_HEADER, sign
+from service.batches.webhooks.urls import WebhookUrlRefused, check_url
 
 
 @dataclass(frozen=True)

@@ -27,7 +27,7 @@ from typing import Any
 from sqlalchemy import func, insert, select, update
 from sqlalchemy.orm import Session
 
-from service.store.batches import finish_if_complete
+from service.batches.repository import finish_if_complete
 from service.store.clock import database_now
 from service.store.models import Batch, BatchChunk, BatchDocument, BatchResult
 
