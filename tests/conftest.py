@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import copy
+import functools
 import os
 import uuid
 from collections.abc import Iterator
@@ -16,7 +17,7 @@ from sqlalchemy.engine import make_url
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
 os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
 
-from service.config import Settings, get_settings
+from service.config import Settings
 from service.store import database
 from service.store.models import Base
 
@@ -145,16 +146,28 @@ def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
 
 
 @pytest.fixture
-def settings(
-    database_url: str, monkeypatch: pytest.MonkeyPatch, tmp_path: Path
-) -> Iterator[Settings]:
-    """Settings for the test database, also visible to code that calls get_settings()."""
-    monkeypatch.setenv("WHICHSENSE_DATABASE_URL", database_url)
-    monkeypatch.setenv("WHICHSENSE_CACHE_DIR", str(tmp_path / "cache"))
-    monkeypatch.setenv("WHICHSENSE_MAX_REQUEST_BYTES", "200000")
-    get_settings.cache_clear()
-    yield get_settings()
-    get_settings.cache_clear()
+def settings(database_url: str, tmp_path: Path) -> Settings:
+    """Settings for the test database; code under test gets them passed, as in production."""
+    return Settings(
+        database_url=database_url, cache_dir=tmp_path / "cache", max_request_bytes=200_000
+    )
+
+
+def settings_environment(settings: Settings) -> dict[str, str]:
+    """`settings` as WHICHSENSE_* variables, for tests that drive an entry point."""
+    return {
+        "WHICHSENSE_DATABASE_URL": settings.database_url,
+        "WHICHSENSE_CACHE_DIR": str(settings.cache_dir),
+        "WHICHSENSE_MAX_REQUEST_BYTES": str(settings.max_request_bytes),
+    }
+
+
+@pytest.fixture
+def cli(settings: Settings) -> Any:
+    """`whichsense ARGS...` run in-process with the test's settings: cli([...]) -> status."""
+    from service.cli.main import main
+
+    return functools.partial(main, settings=settings)
 
 
 @pytest.fixture
@@ -181,10 +194,9 @@ def client(settings: Settings) -> Iterator[Any]:
 def encoder() -> Any:
     """The test session's one encoder, the same object every engine the service builds uses
     (a fixture of the same name in a subfolder's conftest would load a second one)."""
-    from service.engine.encoder import default_model_path
-    from service.tagging.engines import shared_engines
+    from service.tagging.engines import load_encoder
 
-    return shared_engines().encoder(default_model_path())
+    return load_encoder(Settings())
 
 
 def bearer(token: str) -> dict[str, str]:

@@ -18,18 +18,12 @@ import time
 from collections import Counter, defaultdict
 from collections.abc import Iterator
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import httpx
-import uvicorn
-from sqlalchemy.engine import make_url
-from tqdm import tqdm
+if TYPE_CHECKING:
+    import httpx
 
-from service.api.app import create_app
-from service.config import Settings, get_settings
-from service.store import inventories
-from service.store.database import session_scope, upgrade
-from service.store.keys import create_key
+    from service.config import Settings
 
 TERMINAL_STATES = {"done", "failed", "cancelled"}
 
@@ -67,6 +61,8 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
 
 
 def _fresh_sqlite(url: str) -> None:
+    from sqlalchemy.engine import make_url
+
     parsed = make_url(url)
     if parsed.get_backend_name() != "sqlite" or not parsed.database:
         raise ValueError(
@@ -81,8 +77,12 @@ class BackgroundServer:
     """uvicorn in a thread, so this command can be its own first client."""
 
     def __init__(self, settings: Settings, host: str, port: int):
-        app = create_app(settings)
+        import uvicorn
+
+        from service.api.app import create_app
         from worker.embedded import attach
+
+        app = create_app(settings)
 
         attach(app, settings)
         config = uvicorn.Config(app, host=host, port=port, log_level="warning")
@@ -110,6 +110,8 @@ def _ndjson_body(inventory: str, documents: Path) -> Iterator[bytes]:
 
 
 def _follow(client: httpx.Client, status_url: str, total: int) -> dict[str, Any]:
+    from tqdm import tqdm
+
     with tqdm(total=total, unit="doc", desc="tagging", file=sys.stderr) as bar:
         while True:
             status = client.get(status_url).raise_for_status().json()
@@ -197,17 +199,24 @@ def summarise(results: list[dict[str, Any]], labels: dict, status: dict) -> str:
     return "\n".join(lines)
 
 
-def run(args: argparse.Namespace) -> int:
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    import httpx
+
+    from service.store import inventories
+    from service.store.database import session_scope, upgrade
+    from service.store.keys import create_key
+
     if not args.verbose:  # the progress bar tells the story; per-chunk logs would bury it
         for chatty in ("worker", "service.tagging", "uvicorn"):
             logging.getLogger(chatty).setLevel(logging.WARNING)
-    settings = get_settings()
     if args.fresh:
         _fresh_sqlite(settings.database_url)
     upgrade(settings.database_url)
     document = json.loads((args.corpus / "inventory.json").read_text(encoding="utf-8"))
     with session_scope(settings) as session:
-        inventory = inventories.import_inventory_document(session, document)
+        inventory = inventories.import_inventory_document(
+            session, document, defaults=settings.inventory_defaults()
+        )
         name, version = inventory.name, inventory.version
         admin = create_key(session, "admin", "demo")
     print(f"inventory '{name}' version {version} loaded", file=sys.stderr)
@@ -233,7 +242,7 @@ def run(args: argparse.Namespace) -> int:
                 f"{len(held_out)} held out for scoring",
                 file=sys.stderr,
             )
-            _calibrate(name)
+            _calibrate(name, settings)
             submitted = (
                 client.post(
                     "/v1/batches",
@@ -261,7 +270,7 @@ def run(args: argparse.Namespace) -> int:
         (args.output / "summary.txt").write_text(summary + "\n", encoding="utf-8")
         print(f"\nresults: {results_path}")
         if not args.no_report:
-            _write_report(held_out_path, args.output / "report", name)
+            _write_report(held_out_path, args.output / "report", name, settings)
         print(f"\nwhichsense is serving at {server.base_url}  (API docs: {server.base_url}/docs)")
         print(f"admin API key for this demo: {admin.token}")
         if args.exit:
@@ -274,20 +283,22 @@ def run(args: argparse.Namespace) -> int:
         server.stop()
 
 
-def _run_subcommand(*words: str) -> None:
+def _run_subcommand(settings: Settings, *words: str) -> None:
     from service.cli.main import build_parser
 
     parsed = build_parser().parse_args(list(words))
-    status = parsed.func(parsed)
+    status = parsed.func(parsed, settings)
     if status:
         raise RuntimeError(f"`whichsense {' '.join(words)}` failed with status {status}")
 
 
-def _calibrate(inventory: str) -> None:
+def _calibrate(inventory: str, settings: Settings) -> None:
     print("fitting the confidence temperature on the evidence ...", file=sys.stderr)
-    _run_subcommand("calibrate", inventory)
+    _run_subcommand(settings, "calibrate", inventory)
 
 
-def _write_report(labeled: Path, report: Path, inventory: str) -> None:
-    _run_subcommand("evaluate", str(labeled), "--inventory", inventory, "-o", str(report))
+def _write_report(labeled: Path, report: Path, inventory: str, settings: Settings) -> None:
+    _run_subcommand(
+        settings, "evaluate", str(labeled), "--inventory", inventory, "-o", str(report)
+    )
     print(f"evaluation report: {report / 'report.html'}")

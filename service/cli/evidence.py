@@ -7,9 +7,10 @@ import itertools
 import sys
 from collections import Counter
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-from service.evaluation.evidence_source import file_evidence, restrict_to_inventory
-from service.wordnet.corpus import CorpusStats
+if TYPE_CHECKING:
+    from service.config import Settings
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -29,14 +30,16 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     load.set_defaults(func=run)
 
 
-def run(args: argparse.Namespace) -> int:
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    from service.evaluation.evidence_source import file_evidence, restrict_to_inventory
     from service.store.database import session_scope
     from service.store.evidence import add_evidence
     from service.store.inventories import load_inventory_spec
+    from service.wordnet.corpus import CorpusStats
 
     corpus_stats = CorpusStats()
     skipped: Counter[str] = Counter()
-    with session_scope() as session:
+    with session_scope(settings) as session:
         spec = load_inventory_spec(session, args.inventory)
         fitting = restrict_to_inventory(file_evidence(args.file, corpus_stats), spec, skipped)
         if args.limit is not None:

@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
-from service.store.database import session_scope
-from service.store.keys import SCOPES, create_key, list_keys, revoke_key
+from service.store.scopes import SCOPES
+
+if TYPE_CHECKING:
+    from service.config import Settings
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -22,8 +25,11 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     revoke.set_defaults(func=run_revoke)
 
 
-def run_create(args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_create(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.keys import create_key
+
+    with session_scope(settings) as session:
         issued = create_key(session, args.scope, args.label)
     if args.quiet:
         print(issued.token)
@@ -36,16 +42,22 @@ def run_create(args: argparse.Namespace) -> int:
     return 0
 
 
-def run_list(_args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_list(_args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.keys import list_keys
+
+    with session_scope(settings) as session:
         for key in list_keys(session):
             state = f"revoked {key.revoked_at:%Y-%m-%d}" if key.revoked_at else "active"
             print(f"{key.key_id}\t{key.scope}\t{state}\t{key.label}")
     return 0
 
 
-def run_revoke(args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_revoke(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.keys import revoke_key
+
+    with session_scope(settings) as session:
         key = revoke_key(session, args.key_id)
     print(f"revoked {key.key_id}")
     return 0

@@ -25,15 +25,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-
-from .windows import PlannedWindow, TextTokens, plan_windows
-
-os.environ.setdefault("HF_HUB_OFFLINE", "1")
-os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
-
 import torch
 from transformers import AutoModel, AutoTokenizer
 from transformers.utils import logging as transformers_logging
+
+from .windows import PlannedWindow, TextTokens, plan_windows
 
 DEFAULT_LAYERS: tuple[int, ...] = (6,)
 DEFAULT_GLOSS_TEMPLATE = "{term}: {gloss}"
@@ -50,16 +46,13 @@ def default_model_path() -> Path:
 
 
 def default_thread_count() -> int:
-    """Half the usable cores, at least one: $WHICHSENSE_TORCH_THREADS overrides.
+    """Half the usable cores, at least one (the deployment's `torch_threads` overrides it).
 
     Intra-op threads spin while they wait for each other; when the cores are
     shared (API, worker and tests side by side) that collapses throughput. On
     the 2-core development machine under load, 2 threads encoded 265 tokens/s
     and 1 thread 2,006 (DEVELOPERS.md, "Measurements").
     """
-    configured = os.environ.get("WHICHSENSE_TORCH_THREADS")
-    if configured:
-        return max(1, int(configured))
     return max(1, len(os.sched_getaffinity(0)) // 2)
 
 

@@ -15,8 +15,7 @@ from typing import Any
 from sqlalchemy import delete, select
 from sqlalchemy.orm import Session
 
-from service.config import get_settings
-from service.engine.types import InventorySpec
+from service.engine.types import InventorySettings, InventorySpec
 from service.inventory.document import (
     fold,
     parse_inventory_document,
@@ -49,12 +48,11 @@ def get_inventory(session: Session, name: str, *, for_update: bool = False) -> I
     return inventory
 
 
-def _with_default_settings(document: Document) -> Document:
-    settings = get_settings()
+def _with_default_settings(document: Document, defaults: InventorySettings) -> Document:
     document = copy.deepcopy(document)
     chosen = document.setdefault("settings", {})
-    chosen.setdefault("review_threshold", settings.review_threshold)
-    chosen.setdefault("abstain_threshold", settings.abstain_threshold)
+    chosen.setdefault("review_threshold", defaults.review_threshold)
+    chosen.setdefault("abstain_threshold", defaults.abstain_threshold)
     chosen.setdefault("temperature", None)
     return document
 
@@ -102,9 +100,14 @@ def _write_rows(session: Session, inventory: Inventory, spec: InventorySpec) -> 
     session.flush()
 
 
-def create_inventory(session: Session, document: Document) -> Inventory:
-    """Store a new inventory at version 1; Conflict if the name is taken."""
-    spec = parse_inventory_document(_with_default_settings(document), version=1)
+def create_inventory(
+    session: Session, document: Document, *, defaults: InventorySettings
+) -> Inventory:
+    """Store a new inventory at version 1; Conflict if the name is taken.
+
+    `defaults` fills the thresholds the document leaves out (the deployment's settings).
+    """
+    spec = parse_inventory_document(_with_default_settings(document, defaults), version=1)
     if session.scalars(select(Inventory.id).where(Inventory.name == spec.name)).first():
         raise Conflict(f"inventory '{spec.name}' already exists")
     inventory = Inventory(
@@ -162,14 +165,16 @@ def replace_inventory(session: Session, name: str, document: Document) -> Invent
     return edit_inventory(session, name, change)
 
 
-def import_inventory_document(session: Session, data: Document) -> Inventory:
+def import_inventory_document(
+    session: Session, data: Document, *, defaults: InventorySettings
+) -> Inventory:
     """Create the inventory, or replace its content as a new version if it exists."""
     name = data.get("name") if isinstance(data, dict) else None
     if isinstance(name, str) and session.scalars(
         select(Inventory.id).where(Inventory.name == name)
     ).first():
         return replace_inventory(session, name, data)
-    return create_inventory(session, data)
+    return create_inventory(session, data, defaults=defaults)
 
 
 def delete_inventory(session: Session, name: str) -> None:

@@ -10,16 +10,14 @@ import hashlib
 import hmac
 import secrets
 from dataclasses import dataclass
-from typing import Literal
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.store.errors import NotFound
 from service.store.models import ApiKey, utcnow
+from service.store.scopes import SCOPES, Scope
 
-Scope = Literal["ingest", "review", "admin"]
-SCOPES: tuple[Scope, ...] = ("ingest", "review", "admin")
 PREFIX = "ws"
 
 

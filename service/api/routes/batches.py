@@ -30,7 +30,6 @@ from service.store.inventories import get_inventory, version_document
 from service.store.models import Batch
 
 router = APIRouter(prefix="/v1", tags=["batches"])
-queue_metrics.install()
 
 NDJSON = "application/x-ndjson"
 PAGE_DEFAULT = 100
