@@ -21,15 +21,6 @@ from typing import Any
 import numpy as np
 
 
-def file_digest(path: str | Path) -> str:
-    """SHA-256 of a file's bytes."""
-    digest = hashlib.sha256()
-    with Path(path).open("rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
-
-
 def cache_key(parts: dict[str, Any]) -> str:
     """A short stable hash of the JSON-serialisable `parts`."""
     text = json.dumps(parts, sort_keys=True, separators=(",", ":"))
