@@ -11,7 +11,7 @@ An occurrence's vector is the mean of its sub-word vectors, taken from the
 mean of hidden layers `DEFAULT_LAYERS`, then L2-normalised. For
 all-MiniLM-L6-v2 that is the last layer alone: on a SemCor development slice it
 beat the mean of the last two, three, four and all layers (see
-DEVELOPERS.md, "Measurements"). Glosses are encoded with the template
+docs/measurements.md). Glosses are encoded with the template
 `DEFAULT_GLOSS_TEMPLATE`, pooled over all of their tokens from the same layers,
 so glosses and occurrences live in one space.
 """
@@ -51,7 +51,7 @@ def default_thread_count() -> int:
     Intra-op threads spin while they wait for each other; when the cores are
     shared (API, worker and tests side by side) that collapses throughput. On
     the 2-core development machine under load, 2 threads encoded 265 tokens/s
-    and 1 thread 2,006 (DEVELOPERS.md, "Measurements").
+    and 1 thread 2,006 (docs/measurements.md).
     """
     return max(1, len(os.sched_getaffinity(0)) // 2)
 
