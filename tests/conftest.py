@@ -22,7 +22,8 @@ from service.store import database
 from service.store.models import Base
 
 REPO = Path(__file__).resolve().parent.parent
-SHARED_DATA = REPO.parent / "shared" / "data"
+SHARED_DATA = Path(os.environ.get("WHICHSENSE_TEST_SHARED_DATA", REPO.parent / "shared" / "data"))
+WORDNET_DIR = Path("/usr/share/wordnet")
 POSTGRES_URL = os.environ.get(
     "WHICHSENSE_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"
 )
@@ -74,6 +75,34 @@ SMALL_INVENTORY: dict[str, Any] = {
 def inventory_document() -> dict[str, Any]:
     """A fresh copy of the small test inventory."""
     return copy.deepcopy(SMALL_INVENTORY)
+
+
+def missing_outside_ci(what: str) -> None:
+    """Skip a test whose external data is missing; in CI (where it must exist) fail instead."""
+    if os.environ.get("CI"):
+        pytest.fail(f"{what} (CI must provide it)")
+    pytest.skip(what)
+
+
+def shared_data(*names: str) -> list[Path]:
+    """Files of the external corpora in ../shared/data (or $WHICHSENSE_TEST_SHARED_DATA)."""
+    paths = [SHARED_DATA / name for name in names]
+    for path in paths:
+        if not path.is_file():
+            missing_outside_ci(f"external corpus missing: {path} (see ../shared/README.md)")
+    return paths
+
+
+@pytest.fixture(scope="session")
+def wordnet() -> Any:
+    """The system's WordNet 3.0 database, opened once per session."""
+    if not (WORDNET_DIR / "index.sense").is_file():
+        missing_outside_ci(
+            "WordNet 3.0 database not installed (apt-get install wordnet-base wordnet-sense-index)"
+        )
+    from service.engine.lexicon import open_wordnet
+
+    return open_wordnet(WORDNET_DIR)
 
 
 def _postgres_available() -> bool:
