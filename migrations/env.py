@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from alembic import context
 
-from service.config import get_settings
+from service.config import load_settings
 from service.store.database import make_engine
 from service.store.models import Base
 
@@ -13,7 +13,7 @@ target_metadata = Base.metadata
 
 
 def _url() -> str:
-    return config.get_main_option("sqlalchemy.url") or get_settings().database_url
+    return config.get_main_option("sqlalchemy.url") or load_settings().database_url
 
 
 def run_offline() -> None:

@@ -1,16 +1,24 @@
 """Settings read from `WHICHSENSE_*` environment variables.
 
-One frozen object, built once per process, so the API, the worker and the CLI
-agree on limits and thresholds without passing flags around.
+One frozen object, built by an entry point (`whichsense ...`, the ASGI factory)
+and passed down: nothing below the entry points reads the environment, so a
+test or an embedding program hands in the settings it wants.
 """
 
 from __future__ import annotations
 
-from functools import lru_cache
 from pathlib import Path
 
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
+
+from service.engine.types import (
+    ABSTAIN_THRESHOLD_BOUNDS,
+    REVIEW_THRESHOLD_BOUNDS,
+    InventorySettings,
+)
+
+_ENGINE_DEFAULTS = InventorySettings()
 
 
 class Settings(BaseSettings):
@@ -34,12 +42,15 @@ class Settings(BaseSettings):
         default=None, ge=1, description="Encoder threads; empty means half the cores, at least one."
     )
     review_threshold: float = Field(
-        default=0.6, ge=0.0, le=1.0, description="Default review threshold for new inventories."
+        default=_ENGINE_DEFAULTS.review_threshold,
+        ge=REVIEW_THRESHOLD_BOUNDS[0],
+        le=REVIEW_THRESHOLD_BOUNDS[1],
+        description="Default review threshold for new inventories.",
     )
     abstain_threshold: float = Field(
-        default=0.25,
-        ge=-1.0,
-        le=1.0,
+        default=_ENGINE_DEFAULTS.abstain_threshold,
+        ge=ABSTAIN_THRESHOLD_BOUNDS[0],
+        le=ABSTAIN_THRESHOLD_BOUNDS[1],
         description="Default cosine similarity under which no sense is assigned.",
     )
     max_request_bytes: int = Field(
@@ -74,6 +85,12 @@ class Settings(BaseSettings):
         description="Allow callback URLs on private/loopback addresses (tests, single host).",
     )
 
+    def inventory_defaults(self) -> InventorySettings:
+        """The decision settings a new inventory gets where its document names none."""
+        return InventorySettings(
+            review_threshold=self.review_threshold, abstain_threshold=self.abstain_threshold
+        )
+
 
 def resolve_model_dir(settings: Settings) -> Path:
     """The encoder directory: the configured one, else the MiniLM bundled as a package."""
@@ -95,7 +112,6 @@ def model_dir_problem(path: Path) -> str | None:
     return None
 
 
-@lru_cache(maxsize=1)
-def get_settings() -> Settings:
-    """The process-wide settings, read from the environment on first use."""
+def load_settings() -> Settings:
+    """Settings from the environment: call it in an entry point, then pass the object down."""
     return Settings()

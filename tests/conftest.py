@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import copy
+import functools
 import os
 import uuid
 from collections.abc import Iterator
@@ -16,12 +17,13 @@ from sqlalchemy.engine import make_url
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
 os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
 
-from service.config import Settings, get_settings
+from service.config import Settings
 from service.store import database
 from service.store.models import Base
 
 REPO = Path(__file__).resolve().parent.parent
-SHARED_DATA = REPO.parent / "shared" / "data"
+SHARED_DATA = Path(os.environ.get("WHICHSENSE_TEST_SHARED_DATA", REPO.parent / "shared" / "data"))
+WORDNET_DIR = Path("/usr/share/wordnet")
 POSTGRES_URL = os.environ.get(
     "WHICHSENSE_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"
 )
@@ -73,6 +75,34 @@ SMALL_INVENTORY: dict[str, Any] = {
 def inventory_document() -> dict[str, Any]:
     """A fresh copy of the small test inventory."""
     return copy.deepcopy(SMALL_INVENTORY)
+
+
+def missing_outside_ci(what: str) -> None:
+    """Skip a test whose external data is missing; in CI (where it must exist) fail instead."""
+    if os.environ.get("CI"):
+        pytest.fail(f"{what} (CI must provide it)")
+    pytest.skip(what)
+
+
+def shared_data(*names: str) -> list[Path]:
+    """Files of the external corpora in ../shared/data (or $WHICHSENSE_TEST_SHARED_DATA)."""
+    paths = [SHARED_DATA / name for name in names]
+    for path in paths:
+        if not path.is_file():
+            missing_outside_ci(f"external corpus missing: {path} (see ../shared/README.md)")
+    return paths
+
+
+@pytest.fixture(scope="session")
+def wordnet() -> Any:
+    """The system's WordNet 3.0 database, opened once per session."""
+    if not (WORDNET_DIR / "index.sense").is_file():
+        missing_outside_ci(
+            "WordNet 3.0 database not installed (apt-get install wordnet-base wordnet-sense-index)"
+        )
+    from service.engine.lexicon import open_wordnet
+
+    return open_wordnet(WORDNET_DIR)
 
 
 def _postgres_available() -> bool:
@@ -145,16 +175,28 @@ def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
 
 
 @pytest.fixture
-def settings(
-    database_url: str, monkeypatch: pytest.MonkeyPatch, tmp_path: Path
-) -> Iterator[Settings]:
-    """Settings for the test database, also visible to code that calls get_settings()."""
-    monkeypatch.setenv("WHICHSENSE_DATABASE_URL", database_url)
-    monkeypatch.setenv("WHICHSENSE_CACHE_DIR", str(tmp_path / "cache"))
-    monkeypatch.setenv("WHICHSENSE_MAX_REQUEST_BYTES", "200000")
-    get_settings.cache_clear()
-    yield get_settings()
-    get_settings.cache_clear()
+def settings(database_url: str, tmp_path: Path) -> Settings:
+    """Settings for the test database; code under test gets them passed, as in production."""
+    return Settings(
+        database_url=database_url, cache_dir=tmp_path / "cache", max_request_bytes=200_000
+    )
+
+
+def settings_environment(settings: Settings) -> dict[str, str]:
+    """`settings` as WHICHSENSE_* variables, for tests that drive an entry point."""
+    return {
+        "WHICHSENSE_DATABASE_URL": settings.database_url,
+        "WHICHSENSE_CACHE_DIR": str(settings.cache_dir),
+        "WHICHSENSE_MAX_REQUEST_BYTES": str(settings.max_request_bytes),
+    }
+
+
+@pytest.fixture
+def cli(settings: Settings) -> Any:
+    """`whichsense ARGS...` run in-process with the test's settings: cli([...]) -> status."""
+    from service.cli.main import main
+
+    return functools.partial(main, settings=settings)
 
 
 TEAM = "alpha"
@@ -200,10 +242,9 @@ def client(settings: Settings) -> Iterator[Any]:
 def encoder() -> Any:
     """The test session's one encoder, the same object every engine the service builds uses
     (a fixture of the same name in a subfolder's conftest would load a second one)."""
-    from service.engine.encoder import default_model_path
-    from service.tagging.engines import shared_engines
+    from service.tagging.engines import load_encoder
 
-    return shared_engines().encoder(default_model_path())
+    return load_encoder(Settings())
 
 
 def bearer(token: str) -> dict[str, str]:

@@ -18,7 +18,7 @@ from sqlalchemy import func, select
 from service.api.app import create_app
 from service.batches.processing import RetryPolicy
 from service.batches.webhooks.sending import WebhookPolicy
-from service.config import Settings, resolve_model_dir
+from service.config import Settings
 from service.store.database import session_scope
 from service.store.inventories import create_inventory
 from service.store.models import ApiKey, Batch
@@ -218,7 +218,7 @@ def receiver() -> Iterator[Receiver]:
 @pytest.fixture(scope="session")
 def warm_engines(encoder: Any) -> None:
     """Load the encoder once for the whole test session (every engine then shares it)."""
-    assert shared_engines().encoder(resolve_model_dir(Settings())) is encoder
+    assert shared_engines().encoder(Settings()) is encoder
 
 
 @pytest.fixture
@@ -232,7 +232,9 @@ def make_pipeline(
     """Build a Pipeline over the test database with some settings changed."""
     clients: list[TestClient] = []
     with session_scope(settings) as session:
-        create_inventory(session, team_id, inventory_document)
+        create_inventory(
+            session, team_id, inventory_document, defaults=settings.inventory_defaults()
+        )
 
     def build(**overrides: Any) -> Pipeline:
         chosen = settings.model_copy(update=overrides)

@@ -18,6 +18,8 @@ from typing import Any
 import jsonschema
 import pytest
 
+from service.inventory.document import inventory_schema
+
 REPO = Path(__file__).resolve().parent.parent
 CORPUS = REPO / "demo_corpus"
 KINDS = {"listing", "help", "review", "query", "qa", "email"}
@@ -85,8 +87,7 @@ def mentions(text: str, forms: set[str]) -> bool:
 
 
 def test_inventory_follows_the_published_schema(inventory: dict[str, Any]) -> None:
-    schema = json.loads((REPO / "service" / "inventory" / "schema.json").read_text())
-    jsonschema.validate(inventory, schema)
+    jsonschema.validate(inventory, inventory_schema())
     assert inventory["format"] == "whichsense.inventory/1"
     assert inventory["settings"] == {
         "review_threshold": 0.6, "abstain_threshold": 0.15, "temperature": None,

@@ -21,10 +21,10 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service import __version__
-from service.api import metrics
+from service.api import metrics, queue_metrics
 from service.api.problems import install_problem_handlers, problem_response
 from service.api.routes import audit, batches, disambiguate, evidence, health, inventories
-from service.config import Settings, get_settings
+from service.config import Settings
 from service.inventory.document import inventory_schema
 from service.store.database import require_migrated, session_factory
 
@@ -104,9 +104,8 @@ def _openapi_components(schema: dict[str, Any]) -> dict[str, Any]:
     return components
 
 
-def create_app(settings: Settings | None = None, *, check_migrated: bool = True) -> FastAPI:
-    """Build the API for `settings` (default: from the environment)."""
-    settings = settings or get_settings()
+def create_app(settings: Settings, *, check_migrated: bool = True) -> FastAPI:
+    """Build the API for `settings` (the entry point reads them from the environment)."""
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
@@ -124,6 +123,7 @@ def create_app(settings: Settings | None = None, *, check_migrated: bool = True)
     )
     app.state.settings = settings
     app.state.sessions = session_factory(settings.database_url)
+    app.state.metric_registries = (queue_metrics.queue_registry(app.state.sessions),)
     install_problem_handlers(app)
     app.add_middleware(BodyLimit, limit=settings.max_request_bytes)
     app.add_middleware(metrics.RequestMetrics)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import time
 
-from fastapi import APIRouter, Response
+from fastapi import APIRouter, Request, Response
 from prometheus_client import (
     CONTENT_TYPE_LATEST,
     CollectorRegistry,
@@ -32,8 +32,11 @@ router = APIRouter(tags=["operations"])
 
 
 @router.get("/metrics", include_in_schema=True, summary="Prometheus metrics")
-def metrics() -> Response:
-    return Response(generate_latest(REGISTRY), media_type=CONTENT_TYPE_LATEST)
+def metrics(request: Request) -> Response:
+    """The process-wide registry, then the registries the app added (its queue gauges)."""
+    registries = (REGISTRY, *getattr(request.app.state, "metric_registries", ()))
+    body = b"".join(generate_latest(registry) for registry in registries)
+    return Response(body, media_type=CONTENT_TYPE_LATEST)
 
 
 class RequestMetrics:

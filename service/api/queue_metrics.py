@@ -11,15 +11,14 @@ from __future__ import annotations
 import logging
 from collections.abc import Iterator
 
-from prometheus_client import Counter
+from prometheus_client import CollectorRegistry, Counter
 from prometheus_client.core import GaugeMetricFamily
 from prometheus_client.registry import Collector
 from sqlalchemy import func, select
+from sqlalchemy.orm import Session, sessionmaker
 
 from service.api.metrics import REGISTRY
-from service.config import get_settings
 from service.store.clock import as_utc, database_now
-from service.store.database import session_factory
 from service.store.models import BATCH_STATES, Batch, BatchChunk
 
 log = logging.getLogger(__name__)
@@ -33,7 +32,10 @@ SUBMITTED = Counter(
 
 
 class QueueCollector(Collector):
-    """Counts queue rows in the configured database at each scrape."""
+    """Counts queue rows in the app's database at each scrape."""
+
+    def __init__(self, sessions: sessionmaker[Session]) -> None:
+        self.sessions = sessions
 
     def describe(self) -> Iterator[GaugeMetricFamily]:
         """The families without values, so registering never touches the database."""
@@ -61,8 +63,7 @@ class QueueCollector(Collector):
     def collect(self) -> Iterator[GaugeMetricFamily]:
         batches, chunks, webhooks, lag = self._families()
         try:
-            sessions = session_factory(get_settings().database_url)
-            with sessions() as session:
+            with self.sessions() as session:
                 now = database_now(session)
                 by_state = dict(
                     session.execute(select(Batch.state, func.count()).group_by(Batch.state)).all()
@@ -103,12 +104,9 @@ class QueueCollector(Collector):
         yield lag
 
 
-_installed = False
-
-
-def install() -> None:
-    """Register the collector with the API registry once per process."""
-    global _installed
-    if not _installed:
-        REGISTRY.register(QueueCollector())
-        _installed = True
+def queue_registry(sessions: sessionmaker[Session]) -> CollectorRegistry:
+    """A registry holding the queue gauges of one app's database (one per app, so two
+    apps in a process never report each other's queue)."""
+    registry = CollectorRegistry(auto_describe=True)
+    registry.register(QueueCollector(sessions))
+    return registry

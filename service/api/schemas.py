@@ -7,6 +7,8 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from service.engine.types import ABSTAIN_THRESHOLD_BOUNDS, REVIEW_THRESHOLD_BOUNDS
+
 
 class Strict(BaseModel):
     model_config = ConfigDict(extra="forbid")
@@ -46,8 +48,12 @@ class ExampleIn(Strict):
 
 
 class SettingsPatch(Strict):
-    review_threshold: float | None = Field(default=None, ge=0, le=1)
-    abstain_threshold: float | None = Field(default=None, ge=-1, le=1)
+    review_threshold: float | None = Field(
+        default=None, ge=REVIEW_THRESHOLD_BOUNDS[0], le=REVIEW_THRESHOLD_BOUNDS[1]
+    )
+    abstain_threshold: float | None = Field(
+        default=None, ge=ABSTAIN_THRESHOLD_BOUNDS[0], le=ABSTAIN_THRESHOLD_BOUNDS[1]
+    )
     temperature: float | None = Field(default=None, gt=0)
 
 

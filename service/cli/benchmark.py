@@ -6,13 +6,13 @@ import argparse
 import json
 import sys
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from service.evaluation.benchmark import BenchmarkConfig, run_benchmark
-from service.wordnet.glosses import DEFAULT_GLOSS_TEMPLATE, GLOSS_TEMPLATES
-from service.wordnet.prototypes import PrototypeRecipe
+if TYPE_CHECKING:
+    from service.config import Settings
+    from service.evaluation.benchmark import BenchmarkConfig
 
-DEFAULTS = BenchmarkConfig()
+# Defaults belong to BenchmarkConfig and PrototypeRecipe; options left out keep them.
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -33,19 +33,15 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
                          help="use the first N training sentences")
     wordnet.add_argument("--json", action="store_true",
                          help="end with one line holding every figure as a JSON object")
-    wordnet.add_argument("--layers", default=",".join(map(str, DEFAULTS.layers)),
-                         help="hidden layers to pool, e.g. 6 or 3,4,5,6 (default %(default)s)")
-    wordnet.add_argument("--gloss-template", choices=sorted(GLOSS_TEMPLATES),
-                         default=DEFAULT_GLOSS_TEMPLATE)
-    wordnet.add_argument("--evidence-prior", type=float, default=DEFAULTS.recipe.evidence_prior,
-                         help="k in the corpus weight n/(n+k) of a sense seen n times "
-                         "(default %(default)s)")
-    wordnet.add_argument("--prior-weight", type=float, default=DEFAULTS.recipe.prior_weight,
-                         help="weight of the log sense-frequency prior (default %(default)s)")
+    wordnet.add_argument("--layers",
+                         help="hidden layers to pool, e.g. 6 or 3,4,5,6 (default: the last)")
+    wordnet.add_argument("--gloss-template", help="a named gloss template")
+    wordnet.add_argument("--evidence-prior", type=float,
+                         help="k in the corpus weight n/(n+k) of a sense seen n times")
+    wordnet.add_argument("--prior-weight", type=float,
+                         help="weight of the log sense-frequency prior")
     wordnet.add_argument("--fallback", choices=("relations", "gloss"),
-                         default=DEFAULTS.recipe.fallback,
-                         help="what stands in for senses the training file never shows "
-                         "(default %(default)s)")
+                         help="what stands in for senses the training file never shows")
     wordnet.add_argument("--no-cache", action="store_true", help="do not read or write the cache")
     wordnet.add_argument("--no-variants", action="store_true",
                          help="skip the simpler recipes scored for comparison")
@@ -53,10 +49,21 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
 
 
 def _config(args: argparse.Namespace) -> BenchmarkConfig:
-    layers = tuple(int(part) for part in str(args.layers).split(",") if part.strip())
-    recipe = PrototypeRecipe(evidence_prior=args.evidence_prior,
-                             prior_weight=args.prior_weight, fallback=args.fallback)
-    return BenchmarkConfig(layers=layers, gloss_template=args.gloss_template, recipe=recipe)
+    from service.evaluation.benchmark import BenchmarkConfig
+    from service.wordnet.glosses import GLOSS_TEMPLATES
+    from service.wordnet.prototypes import PrototypeRecipe
+
+    def given(**options: Any) -> dict[str, Any]:
+        return {name: value for name, value in options.items() if value is not None}
+
+    if args.gloss_template is not None and args.gloss_template not in GLOSS_TEMPLATES:
+        raise ValueError(f"--gloss-template: choose from {', '.join(sorted(GLOSS_TEMPLATES))}")
+    layers = (tuple(int(part) for part in str(args.layers).split(",") if part.strip())
+              if args.layers else None)
+    recipe = PrototypeRecipe(**given(evidence_prior=args.evidence_prior,
+                                     prior_weight=args.prior_weight, fallback=args.fallback))
+    return BenchmarkConfig(**given(layers=layers, gloss_template=args.gloss_template),
+                           recipe=recipe)
 
 
 def format_table(result: dict[str, Any]) -> str:
@@ -96,21 +103,24 @@ def format_table(result: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
-def run(args: argparse.Namespace) -> int:
-    from service.config import get_settings, resolve_model_dir
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    from service.config import resolve_model_dir
     from service.engine import ContextEncoder
     from service.engine.lexicon import open_wordnet
+    from service.evaluation.benchmark import run_benchmark
 
     for path in (args.train, args.test):
         if not path.is_file():
             print(f"whichsense: no such file: {path}", file=sys.stderr)
             return 2
     config = _config(args)
-    encoder = ContextEncoder(resolve_model_dir(get_settings()), layers=config.layers,
-                             batch_size=config.batch_size)
+    print("loading the model and WordNet ...", file=sys.stderr, flush=True)
+    encoder = ContextEncoder(resolve_model_dir(settings), layers=config.layers,
+                             batch_size=config.batch_size, num_threads=settings.torch_threads)
     result = run_benchmark(
-        args.train, args.test, config, reader=open_wordnet(), encoder=encoder,
-        limit=args.limit, train_limit=args.train_limit, use_cache=not args.no_cache,
+        args.train, args.test, config, reader=open_wordnet(cache_dir=settings.cache_dir),
+        encoder=encoder, limit=args.limit, train_limit=args.train_limit,
+        cache_dir=None if args.no_cache else settings.cache_dir,
         variants=not args.no_variants,
         log=lambda message: print(message, file=sys.stderr, flush=True),
     )

@@ -9,14 +9,12 @@ fitted temperature is stored in the inventory's settings (a new version).
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from service.cli.teams import add_team_option, team_id
-from service.config import get_settings, resolve_model_dir
-from service.engine import DEFAULT_TEMPERATURE, PrototypeBook, calibrate_book
-from service.store import inventories
-from service.store.database import session_scope
-from service.store.evidence import load_evidence
-from service.tagging.engines import shared_engines
+
+if TYPE_CHECKING:
+    from service.config import Settings
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -29,8 +27,13 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=run)
 
 
-def run(args: argparse.Namespace) -> int:
-    settings = get_settings()
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    from service.engine import DEFAULT_TEMPERATURE, calibrate_book
+    from service.store import inventories
+    from service.store.database import session_scope
+    from service.store.evidence import load_evidence
+    from service.tagging.engines import build_disambiguator
+
     with session_scope(settings) as session:
         team = team_id(session, args.team)
         spec = inventories.load_inventory_spec(session, team, args.name)
@@ -42,8 +45,8 @@ def run(args: argparse.Namespace) -> int:
             "add some (POST /v1/inventories/{name}/evidence or `whichsense evidence import`)"
         )
         return 2
-    encoder = shared_engines().encoder(resolve_model_dir(settings))
-    book = PrototypeBook.build(encoder, spec, evidence)
+    print(f"loading the model, encoding {len(evidence)} labeled occurrences ...")
+    book = build_disambiguator(settings, spec, evidence).prototypes
     current = spec.settings.temperature or DEFAULT_TEMPERATURE
     report = calibrate_book(book, current)
     print(f"{report.instances} labeled occurrences (leave-one-out), accuracy {report.accuracy:.3f}")

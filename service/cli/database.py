@@ -3,11 +3,10 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
-from sqlalchemy.engine import make_url
-
-from service.config import get_settings
-from service.store.database import current_revision, engine_for, head_revision, upgrade
+if TYPE_CHECKING:
+    from service.config import Settings
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -19,17 +18,25 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     actions.add_parser("current", help="show the schema revision").set_defaults(func=run_current)
 
 
-def _where() -> str:
-    return make_url(get_settings().database_url).render_as_string(hide_password=True)
+def _where(settings: Settings) -> str:
+    from sqlalchemy.engine import make_url
+
+    return make_url(settings.database_url).render_as_string(hide_password=True)
 
 
-def run_upgrade(args: argparse.Namespace) -> int:
-    upgrade(get_settings().database_url, args.revision)
-    print(f"{_where()} is at revision {current_revision(engine_for(get_settings().database_url))}")
+def run_upgrade(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import current_revision, engine_for, upgrade
+
+    upgrade(settings.database_url, args.revision)
+    revision = current_revision(engine_for(settings.database_url))
+    print(f"{_where(settings)} is at revision {revision}")
     return 0
 
 
-def run_current(_args: argparse.Namespace) -> int:
-    current = current_revision(engine_for(get_settings().database_url))
-    print(f"{_where()}: revision {current or '(none)'}; this version needs {head_revision()}")
+def run_current(_args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import current_revision, engine_for, head_revision
+
+    current = current_revision(engine_for(settings.database_url))
+    needed = head_revision()
+    print(f"{_where(settings)}: revision {current or '(none)'}; this version needs {needed}")
     return 0 if current == head_revision() else 1

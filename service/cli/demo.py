@@ -18,19 +18,12 @@ import time
 from collections import Counter, defaultdict
 from collections.abc import Iterator
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import httpx
-import uvicorn
-from sqlalchemy.engine import make_url
-from tqdm import tqdm
+if TYPE_CHECKING:
+    import httpx
 
-from service.api.app import create_app
-from service.config import Settings, get_settings
-from service.store import inventories
-from service.store.database import session_scope, upgrade
-from service.store.keys import create_key
-from service.store.teams import demo_team
+    from service.config import Settings
 
 TERMINAL_STATES = {"done", "failed", "cancelled"}
 
@@ -71,6 +64,8 @@ DEMO_TEAM = "demo"
 
 
 def _fresh_sqlite(url: str) -> None:
+    from sqlalchemy.engine import make_url
+
     parsed = make_url(url)
     if parsed.get_backend_name() != "sqlite" or not parsed.database:
         raise ValueError(
@@ -85,8 +80,12 @@ class BackgroundServer:
     """uvicorn in a thread, so this command can be its own first client."""
 
     def __init__(self, settings: Settings, host: str, port: int):
-        app = create_app(settings)
+        import uvicorn
+
+        from service.api.app import create_app
         from worker.embedded import attach
+
+        app = create_app(settings)
 
         attach(app, settings)
         config = uvicorn.Config(app, host=host, port=port, log_level="warning")
@@ -114,6 +113,8 @@ def _ndjson_body(inventory: str, documents: Path) -> Iterator[bytes]:
 
 
 def _follow(client: httpx.Client, status_url: str, total: int) -> dict[str, Any]:
+    from tqdm import tqdm
+
     with tqdm(total=total, unit="doc", desc="tagging", file=sys.stderr) as bar:
         while True:
             status = client.get(status_url).raise_for_status().json()
@@ -201,18 +202,26 @@ def summarise(results: list[dict[str, Any]], labels: dict, status: dict) -> str:
     return "\n".join(lines)
 
 
-def run(args: argparse.Namespace) -> int:
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    import httpx
+
+    from service.store import inventories
+    from service.store.database import session_scope, upgrade
+    from service.store.keys import create_key
+    from service.store.teams import demo_team
+
     if not args.verbose:  # the progress bar tells the story; per-chunk logs would bury it
         for chatty in ("worker", "service.tagging", "uvicorn"):
             logging.getLogger(chatty).setLevel(logging.WARNING)
-    settings = get_settings()
     if args.fresh:
         _fresh_sqlite(settings.database_url)
     upgrade(settings.database_url)
     document = json.loads((args.corpus / "inventory.json").read_text(encoding="utf-8"))
     with session_scope(settings) as session:
         team = demo_team(session, DEMO_TEAM)
-        inventory = inventories.import_inventory_document(session, team.id, document)
+        inventory = inventories.import_inventory_document(
+            session, team.id, document, defaults=settings.inventory_defaults()
+        )
         name, version = inventory.name, inventory.version
         admin = create_key(session, team.id, "admin", "demo")
     print(f"team '{DEMO_TEAM}': inventory '{name}' version {version} loaded", file=sys.stderr)
@@ -238,7 +247,7 @@ def run(args: argparse.Namespace) -> int:
                 f"{len(held_out)} held out for scoring",
                 file=sys.stderr,
             )
-            _calibrate(name)
+            _calibrate(name, settings)
             submitted = (
                 client.post(
                     "/v1/batches",
@@ -266,7 +275,7 @@ def run(args: argparse.Namespace) -> int:
         (args.output / "summary.txt").write_text(summary + "\n", encoding="utf-8")
         print(f"\nresults: {results_path}")
         if not args.no_report:
-            _write_report(held_out_path, args.output / "report", name)
+            _write_report(held_out_path, args.output / "report", name, settings)
         print(f"\nwhichsense is serving at {server.base_url}  (API docs: {server.base_url}/docs)")
         print(f"admin API key of team '{DEMO_TEAM}' (it sees this team only): {admin.token}")
         if args.exit:
@@ -279,22 +288,23 @@ def run(args: argparse.Namespace) -> int:
         server.stop()
 
 
-def _run_subcommand(*words: str) -> None:
+def _run_subcommand(settings: Settings, *words: str) -> None:
     from service.cli.main import build_parser
 
     parsed = build_parser().parse_args(list(words))
-    status = parsed.func(parsed)
+    status = parsed.func(parsed, settings)
     if status:
         raise RuntimeError(f"`whichsense {' '.join(words)}` failed with status {status}")
 
 
-def _calibrate(inventory: str) -> None:
+def _calibrate(inventory: str, settings: Settings) -> None:
     print("fitting the confidence temperature on the evidence ...", file=sys.stderr)
-    _run_subcommand("calibrate", inventory, "--team", DEMO_TEAM)
+    _run_subcommand(settings, "calibrate", inventory, "--team", DEMO_TEAM)
 
 
-def _write_report(labeled: Path, report: Path, inventory: str) -> None:
+def _write_report(labeled: Path, report: Path, inventory: str, settings: Settings) -> None:
     _run_subcommand(
-        "evaluate", str(labeled), "--inventory", inventory, "--team", DEMO_TEAM, "-o", str(report)
+        settings, "evaluate", str(labeled), "--inventory", inventory, "--team", DEMO_TEAM,
+        "-o", str(report),
     )
     print(f"evaluation report: {report / 'report.html'}")

@@ -3,17 +3,19 @@
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 import time
 from collections import Counter
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-from service.cli.teams import add_team_option, team_id
-from service.engine.types import Evidence, InventorySpec
-from service.evaluation.labeled import LabeledOccurrence, read_labeled
-from service.evaluation.report import Outcome, summarise, write_report
-from service.inventory.document import fold
+from service.cli.inventory import load_inventory
+from service.cli.teams import add_team_option
+
+if TYPE_CHECKING:
+    from service.config import Settings
+    from service.engine.types import Evidence, InventorySpec
+    from service.evaluation.labeled import LabeledOccurrence
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -39,31 +41,12 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=run)
 
 
-def load_inventory(
-    reference: str, with_evidence: bool, team: str | None = None
-) -> tuple[InventorySpec, list[Evidence], str]:
-    """(inventory, its stored evidence, where it came from): a file first, else the store."""
-    path = Path(reference)
-    if path.is_file():
-        from service.inventory.document import parse_inventory_document
-
-        return parse_inventory_document(json.loads(path.read_text(encoding="utf-8"))), [], "file"
-    from service.store.database import session_scope
-    from service.store.evidence import load_evidence
-    from service.store.inventories import get_inventory, load_inventory_spec
-
-    with session_scope() as session:
-        chosen = team_id(session, team)
-        spec = load_inventory_spec(session, chosen, reference)
-        evidence = load_evidence(session, get_inventory(session, chosen, reference).id) if (
-            with_evidence) else []
-    return spec, evidence, "database"
-
-
 def match_terms(
     items: list[LabeledOccurrence], spec: InventorySpec, skipped: Counter[str]
 ) -> list[tuple[LabeledOccurrence, str]]:
     """Labeled items paired with the inventory's spelling of their term; others counted."""
+    from service.inventory.document import fold
+
     terms = {fold(surface): term.term for term in spec.terms
              for surface in (term.term, *term.aliases)}
     matched = []
@@ -88,23 +71,28 @@ def without_labeled_items(
     return kept
 
 
-def run(args: argparse.Namespace) -> int:
-    from service.config import get_settings, resolve_model_dir
-    from service.engine import ContextEncoder, Disambiguator, SpanQuery
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    from service.engine import SpanQuery
+    from service.evaluation.labeled import read_labeled
+    from service.evaluation.report import Outcome, summarise, write_report
+    from service.tagging.engines import build_disambiguator
 
     started = time.perf_counter()
     items = list(read_labeled(args.labeled))
     if args.limit is not None:
         items = items[: max(0, args.limit)]
-    spec, evidence, source = load_inventory(args.inventory, not args.no_evidence, args.team)
+    spec, evidence, source = load_inventory(
+        args.inventory, settings, with_evidence=not args.no_evidence, team=args.team
+    )
     skipped: Counter[str] = Counter()
     matched = match_terms(items, spec, skipped)
     if not matched:
         print("whichsense: no labeled occurrence names a term of the inventory", file=sys.stderr)
         return 2
     evidence = without_labeled_items(evidence, items, skipped)
-    encoder = ContextEncoder(resolve_model_dir(get_settings()))
-    disambiguator = Disambiguator(encoder, spec, evidence)
+    print(f"loading the model, scoring {len(matched)} labeled occurrences ...", file=sys.stderr)
+    disambiguator = build_disambiguator(settings, spec, evidence)
+    encoder = disambiguator.encoder
     queries = [SpanQuery(item.text, item.start, item.end, term, document_id=item.occurrence_id)
                for item, term in matched]
     results = disambiguator.classify_spans(queries)

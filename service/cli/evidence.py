@@ -7,10 +7,12 @@ import itertools
 import sys
 from collections import Counter
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from service.cli.teams import add_team_option, team_id
-from service.evaluation.evidence_source import file_evidence, restrict_to_inventory
-from service.wordnet.corpus import CorpusStats
+
+if TYPE_CHECKING:
+    from service.config import Settings
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -31,14 +33,16 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     load.set_defaults(func=run)
 
 
-def run(args: argparse.Namespace) -> int:
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    from service.evaluation.evidence_source import file_evidence, restrict_to_inventory
     from service.store.database import session_scope
     from service.store.evidence import add_evidence
     from service.store.inventories import load_inventory_spec
+    from service.wordnet.corpus import CorpusStats
 
     corpus_stats = CorpusStats()
     skipped: Counter[str] = Counter()
-    with session_scope() as session:
+    with session_scope(settings) as session:
         team = team_id(session, args.team)
         spec = load_inventory_spec(session, team, args.inventory)
         fitting = restrict_to_inventory(file_evidence(args.file, corpus_stats), spec, skipped)

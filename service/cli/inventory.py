@@ -6,12 +6,14 @@ import argparse
 import json
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from service.cli.teams import add_team_option, team_id
-from service.inventory.csv_format import read_inventory_csv, write_inventory_csv
-from service.inventory.document import dump_document
-from service.store import inventories as repo
-from service.store.database import session_scope
+from service.cli.wordnet import add_wordnet_parser
+
+if TYPE_CHECKING:
+    from service.config import Settings
+    from service.engine.types import Evidence, InventorySpec
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -35,17 +37,39 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     listing = actions.add_parser("list", help="list inventories")
     add_team_option(listing)
     listing.set_defaults(func=run_list)
-    try:
-        from service.cli.wordnet import add_wordnet_parser
-    except ModuleNotFoundError as exc:
-        if exc.name != "service.cli.wordnet":
-            raise
-    else:
-        add_wordnet_parser(actions)
+    add_wordnet_parser(actions)
+
+
+def load_inventory(
+    reference: str, settings: Settings, *, with_evidence: bool = True, team: str | None = None
+) -> tuple[InventorySpec, list[Evidence], str]:
+    """(inventory, its stored evidence, "file" or "database"): an inventory document file
+    if `reference` names one, else the stored inventory of that name with its evidence."""
+    path = Path(reference)
+    if path.is_file():
+        from service.inventory.document import parse_inventory_document
+
+        with path.open(encoding="utf-8") as handle:
+            return parse_inventory_document(json.load(handle)), [], "file"
+    from service.store.database import session_scope
+    from service.store.evidence import load_evidence
+    from service.store.inventories import get_inventory, load_inventory_spec
+
+    with session_scope(settings) as session:
+        chosen = team_id(session, team)
+        spec = load_inventory_spec(session, chosen, reference)
+        evidence = (
+            load_evidence(session, get_inventory(session, chosen, reference).id)
+            if with_evidence
+            else []
+        )
+    return spec, evidence, "database"
 
 
 def read_document_file(path: Path, name: str | None = None) -> dict:
     """An inventory document from a .json or .csv file (CSV needs `name`)."""
+    from service.inventory.csv_format import read_inventory_csv
+
     text = path.read_text(encoding="utf-8")
     if path.suffix.lower() == ".csv":
         if not name:
@@ -57,16 +81,26 @@ def read_document_file(path: Path, name: str | None = None) -> dict:
     return data
 
 
-def run_import(args: argparse.Namespace) -> int:
+def run_import(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store import inventories as repo
+    from service.store.database import session_scope
+
     document = read_document_file(args.file, args.name)
-    with session_scope() as session:
-        inventory = repo.import_inventory_document(session, team_id(session, args.team), document)
+    with session_scope(settings) as session:
+        inventory = repo.import_inventory_document(
+            session, team_id(session, args.team), document, defaults=settings.inventory_defaults()
+        )
         print(f"inventory '{inventory.name}' is now at version {inventory.version}")
     return 0
 
 
-def run_export(args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_export(args: argparse.Namespace, settings: Settings) -> int:
+    from service.inventory.csv_format import write_inventory_csv
+    from service.inventory.document import dump_document
+    from service.store import inventories as repo
+    from service.store.database import session_scope
+
+    with session_scope(settings) as session:
         inventory = repo.get_inventory(session, team_id(session, args.team), args.name)
         version = args.version or inventory.version
         document = repo.version_document(session, inventory, version)
@@ -80,8 +114,11 @@ def run_export(args: argparse.Namespace) -> int:
     return 0
 
 
-def run_list(args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_list(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store import inventories as repo
+    from service.store.database import session_scope
+
+    with session_scope(settings) as session:
         for inventory in repo.list_inventories(session, team_id(session, args.team)):
             document = repo.current_document(session, inventory)
             senses = sum(len(t["senses"]) for t in document["terms"])

@@ -1,17 +1,15 @@
-"""`whichsense keys create|list|revoke`: API keys (shown once, stored hashed).
-
-Every key belongs to one team (`--team`; may be left out while there is one
-team, and on an empty database a team `default` is made)."""
+"""`whichsense keys create|list|revoke`: API keys (shown once, stored hashed)."""
 
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from service.cli.teams import add_team_option, team_id
-from service.store.database import session_scope
-from service.store.keys import SCOPES, create_key, list_keys, revoke_key
-from service.store.models import Team
-from service.store.teams import find_team
+from service.store.scopes import SCOPES
+
+if TYPE_CHECKING:
+    from service.config import Settings
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -31,8 +29,12 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     revoke.set_defaults(func=run_revoke)
 
 
-def run_create(args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_create(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.keys import create_key
+    from service.store.models import Team
+
+    with session_scope(settings) as session:
         team = team_id(session, args.team)
         issued = create_key(session, team, args.scope, args.label)
         team_name = session.get_one(Team, team).name
@@ -48,8 +50,13 @@ def run_create(args: argparse.Namespace) -> int:
     return 0
 
 
-def run_list(args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_list(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.keys import list_keys
+    from service.store.models import Team
+    from service.store.teams import find_team
+
+    with session_scope(settings) as session:
         only = find_team(session, args.team).id if args.team else None
         names = {team.id: team.name for team in session.query(Team)}
         for key in list_keys(session, only):
@@ -58,8 +65,11 @@ def run_list(args: argparse.Namespace) -> int:
     return 0
 
 
-def run_revoke(args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_revoke(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.keys import revoke_key
+
+    with session_scope(settings) as session:
         key = revoke_key(session, args.key_id)
     print(f"revoked {key.key_id}")
     return 0

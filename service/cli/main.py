@@ -1,4 +1,10 @@
-"""Entry point of the `whichsense` command: builds the parser from the subcommand modules."""
+"""Entry point of the `whichsense` command: builds the parser from the subcommand modules.
+
+Start-up stays fast: the subcommand modules import only the standard library at
+the top, so `whichsense --help` builds the whole argument tree without torch,
+FastAPI or SQLAlchemy; each handler imports what its command needs. The
+settings are read from the environment here, once, and handed to the handler.
+"""
 
 from __future__ import annotations
 
@@ -7,12 +13,29 @@ import logging
 import os
 import sys
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 from service import __version__
-from service.cli import database, inventory, keys, serve, teams
-from service.inventory.document import InventoryInvalid
-from service.store.database import DatabaseNotMigrated
-from service.store.errors import Conflict, NotFound
+from service.cli import (
+    benchmark,
+    calibrate,
+    database,
+    demo,
+    evaluate,
+    evidence,
+    inventory,
+    keys,
+    serve,
+    tag,
+    teams,
+    worker,
+)
+
+if TYPE_CHECKING:
+    from service.config import Settings
+
+SUBCOMMANDS = (database, teams, keys, inventory, serve, tag, evidence, calibrate, benchmark,
+               evaluate, worker, demo)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -23,27 +46,13 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"whichsense {__version__}")
     parser.add_argument("-v", "--verbose", action="store_true", help="log more")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
-    for module in (database, teams, keys, inventory, serve):
+    for module in SUBCOMMANDS:
         module.add_parser(commands)
-    for name in ("tag", "evidence", "calibrate", "benchmark", "evaluate", "worker", "demo"):
-        _add_optional(commands, name)
     return parser
 
 
-def _add_optional(commands: argparse._SubParsersAction, name: str) -> None:
-    """Subcommands that live in their own module are wired when the module is present."""
-    import importlib
-
-    try:
-        module = importlib.import_module(f"service.cli.{name}")
-    except ModuleNotFoundError as exc:
-        if exc.name != f"service.cli.{name}":
-            raise
-        return
-    module.add_parser(commands)
-
-
-def main(argv: Sequence[str] | None = None) -> int:
+def main(argv: Sequence[str] | None = None, *, settings: Settings | None = None) -> int:
+    """Run one command; `settings` default to the environment's (tests pass their own)."""
     os.environ.setdefault("HF_HUB_OFFLINE", "1")
     os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
     parser = build_parser()
@@ -55,8 +64,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not args.verbose:
         for chatty in ("httpx", "alembic.runtime.migration"):
             logging.getLogger(chatty).setLevel(logging.WARNING)
+
+    from service.config import load_settings
+    from service.inventory.document import InventoryInvalid
+    from service.store.database import DatabaseNotMigrated
+    from service.store.errors import Conflict, NotFound
+
     try:
-        return int(args.func(args) or 0)
+        chosen = settings if settings is not None else load_settings()
+        return int(args.func(args, chosen) or 0)
     except KeyboardInterrupt:
         return 130
     except InventoryInvalid as exc:

@@ -3,13 +3,10 @@
 from __future__ import annotations
 
 import argparse
-import importlib
+from typing import TYPE_CHECKING
 
-import uvicorn
-
-from service.api.app import create_app
-from service.config import get_settings
-from service.store.database import require_migrated
+if TYPE_CHECKING:
+    from service.config import Settings
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -24,24 +21,16 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=run)
 
 
-def run(args: argparse.Namespace) -> int:
-    settings = get_settings()
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    import uvicorn
+
+    from service.api.app import create_app
+    from service.store.database import require_migrated
+    from worker.embedded import attach
+
     require_migrated(settings.database_url)
     app = create_app(settings)
     if not args.no_worker:
-        attach = _in_process_worker()
-        if attach is not None:
-            attach(app, settings)
+        attach(app, settings)
     uvicorn.run(app, host=args.host, port=args.port, log_level="info")
     return 0
-
-
-def _in_process_worker():  # type: ignore[no-untyped-def]
-    """The worker's hook for embedded mode, when the worker package provides one."""
-    try:
-        module = importlib.import_module("worker.embedded")
-    except ModuleNotFoundError as exc:
-        if exc.name not in ("worker.embedded", "worker"):
-            raise
-        return None
-    return module.attach

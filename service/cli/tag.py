@@ -18,15 +18,19 @@ from collections import Counter
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import IO, Any, BinaryIO
-
-from tqdm import tqdm
+from typing import IO, TYPE_CHECKING, Any, BinaryIO
 
 from service.batches.documents import parse_document
-from service.cli.teams import add_team_option, team_id
+from service.cli.inventory import load_inventory
+from service.cli.teams import add_team_option
 from service.engine.errors import DocumentTooLarge
-from service.engine.types import Document, Evidence, InventorySpec
+from service.engine.types import Document
 from service.line_errors import LineError
+
+if TYPE_CHECKING:
+    from tqdm import tqdm
+
+    from service.config import Settings
 
 
 class InputLineError(LineError):
@@ -134,27 +138,6 @@ def _say(message: str, progress: tqdm | None) -> None:
         print(f"whichsense tag: {message}", file=sys.stderr)
 
 
-def load_inventory(
-    reference: str, team: str | None = None
-) -> tuple[InventorySpec, list[Evidence]]:
-    """An inventory from a document file, or by name (with its evidence) from the database."""
-    path = Path(reference)
-    if path.is_file():
-        from service.inventory.document import parse_inventory_document
-
-        with path.open(encoding="utf-8") as handle:
-            return parse_inventory_document(json.load(handle)), []
-    from service.store.database import session_scope
-    from service.store.evidence import load_evidence
-    from service.store.inventories import get_inventory, load_inventory_spec
-
-    with session_scope() as session:
-        chosen = team_id(session, team)
-        spec = load_inventory_spec(session, chosen, reference)
-        evidence = load_evidence(session, get_inventory(session, chosen, reference).id)
-    return spec, evidence
-
-
 @contextmanager
 def _input(name: str) -> Iterator[tuple[BinaryIO, int | None]]:
     if name == "-":
@@ -184,23 +167,20 @@ def _output(name: str) -> Iterator[IO[str]]:
         raise
 
 
-def run(args: argparse.Namespace) -> int:
-    from service.config import get_settings, resolve_model_dir
-    from service.engine.disambiguator import Disambiguator
-    from service.engine.encoder import ContextEncoder
+def run(args: argparse.Namespace, settings: Settings) -> int:
+    from tqdm import tqdm
 
-    inventory, evidence = load_inventory(args.inventory, args.team)
-    settings = get_settings()
-    encoder = ContextEncoder(resolve_model_dir(settings))
-    # The engine counts characters; a document within the byte limit is within this one too.
-    disambiguator = Disambiguator(
-        encoder,
+    from service.tagging.engines import build_disambiguator
+
+    inventory, evidence, _ = load_inventory(args.inventory, settings, team=args.team)
+    extra = f" and {len(evidence)} evidence items" if evidence else ""
+    _say(f"loading the model, encoding the senses of '{inventory.name}'{extra} ...", None)
+    disambiguator = build_disambiguator(
+        settings,
         inventory,
-        max_document_chars=settings.max_document_bytes,
+        evidence,
         erasure_for=frozenset() if args.no_erasure else frozenset({"review"}),
     )
-    if evidence:
-        disambiguator.prototypes.add_evidence(evidence, encoder=encoder, skip_unknown=True)
     problems: Counter[str] = Counter()
     statuses: Counter[str] = Counter()
     documents = 0

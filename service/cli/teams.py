@@ -9,13 +9,12 @@ from __future__ import annotations
 
 import argparse
 import sys
+from typing import TYPE_CHECKING
 
-from sqlalchemy import func, select
-from sqlalchemy.orm import Session
+if TYPE_CHECKING:
+    from sqlalchemy.orm import Session
 
-from service.store.database import session_scope
-from service.store.models import ApiKey, Batch, Inventory
-from service.store.teams import choose_team, create_team, find_team, list_teams, set_retention
+    from service.config import Settings
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -41,21 +40,32 @@ def add_team_option(parser: argparse.ArgumentParser) -> None:
 
 def team_id(session: Session, name: str | None) -> int:
     """The id of the named team, or of the only one (said on stderr when chosen)."""
+    from service.store.teams import choose_team
+
     team, note = choose_team(session, name)
     if note:
         print(f"whichsense: {note}", file=sys.stderr)
     return team.id
 
 
-def run_create(args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_create(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.teams import create_team
+
+    with session_scope(settings) as session:
         team = create_team(session, args.name, args.retention_days)
         print(f"created team '{team.name}'")
     return 0
 
 
-def run_list(_args: argparse.Namespace) -> int:
-    with session_scope() as session:
+def run_list(_args: argparse.Namespace, settings: Settings) -> int:
+    from sqlalchemy import func, select
+
+    from service.store.database import session_scope
+    from service.store.models import ApiKey, Batch, Inventory
+    from service.store.teams import list_teams
+
+    with session_scope(settings) as session:
         for team in list_teams(session):
             counts = [
                 session.scalar(
@@ -69,9 +79,12 @@ def run_list(_args: argparse.Namespace) -> int:
     return 0
 
 
-def run_retention(args: argparse.Namespace) -> int:
+def run_retention(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.teams import find_team, set_retention
+
     days = None if args.days.lower() in ("none", "off", "0") else int(args.days)
-    with session_scope() as session:
+    with session_scope(settings) as session:
         team = set_retention(session, find_team(session, args.name).id, days)
         shown = f"{team.retention_days} days" if team.retention_days else "none (kept)"
         print(f"team '{team.name}' retention: {shown}")

@@ -5,11 +5,12 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from service.cli.teams import add_team_option, team_id
-from service.engine.lexicon import open_wordnet
-from service.inventory.document import dump_document, spec_to_document
-from service.wordnet.inventory import all_lemmas, build_wordnet_inventory
+
+if TYPE_CHECKING:
+    from service.config import Settings
 
 
 def add_wordnet_parser(actions: argparse._SubParsersAction) -> None:
@@ -45,8 +46,12 @@ def read_lemma_file(path: Path) -> list[str]:
     return lemmas
 
 
-def run_wordnet(args: argparse.Namespace) -> int:
-    reader = open_wordnet()
+def run_wordnet(args: argparse.Namespace, settings: Settings) -> int:
+    from service.engine.lexicon import open_wordnet
+    from service.inventory.document import dump_document, spec_to_document
+    from service.wordnet.inventory import all_lemmas, build_wordnet_inventory
+
+    reader = open_wordnet(cache_dir=settings.cache_dir)
     lemmas: list[str] = list(args.lemma)
     if args.lemmas_from:
         lemmas += read_lemma_file(args.lemmas_from)
@@ -75,8 +80,10 @@ def run_wordnet(args: argparse.Namespace) -> int:
     from service.store.database import session_scope
     from service.store.inventories import import_inventory_document
 
-    with session_scope() as session:
-        inventory = import_inventory_document(session, team_id(session, args.team), document)
+    with session_scope(settings) as session:
+        inventory = import_inventory_document(
+            session, team_id(session, args.team), document, defaults=settings.inventory_defaults()
+        )
         print(f"inventory '{inventory.name}' is now at version {inventory.version} "
               f"({len(spec.terms)} terms, {senses} senses)")
     return 0

@@ -12,9 +12,10 @@ import logging
 import signal
 import threading
 from types import FrameType
+from typing import TYPE_CHECKING, Any
 
-from service.config import get_settings
-from service.store.database import require_migrated
+if TYPE_CHECKING:
+    from service.config import Settings
 
 log = logging.getLogger(__name__)
 
@@ -24,23 +25,24 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
         "worker", help="process submitted batches (run many against one PostgreSQL)"
     )
     parser.add_argument("--name", help="worker name shown on leases (default host:pid:random)")
+    # Defaults belong to the policy classes (worker/loop.py, chunks.py, webhooks.py).
     parser.add_argument(
-        "--poll-seconds", type=float, default=1.0, help="sleep between polls when idle"
+        "--poll-seconds", type=float, help="sleep between polls when idle (default: the policy's)"
     )
     parser.add_argument(
         "--retry-base-seconds",
         type=float,
-        default=5.0,
-        help="backoff before retrying a chunk with failed documents (doubles per try)",
+        help="backoff before retrying a chunk with failed documents (doubles per try; "
+        "default: the policy's)",
     )
     parser.add_argument(
         "--webhook-retry-base-seconds",
         type=float,
-        default=10.0,
-        help="backoff before retrying a webhook (doubles per try, at most an hour)",
+        help="backoff before retrying a webhook (doubles per try, capped; default: the policy's)",
     )
     parser.add_argument(
-        "--webhook-max-attempts", type=int, default=8, help="webhook tries before giving up"
+        "--webhook-max-attempts", type=int, help="webhook tries before giving up "
+        "(default: the policy's)"
     )
     parser.add_argument(
         "--metrics-port", type=int, help="serve Prometheus metrics on this port (127.0.0.1)"
@@ -49,19 +51,27 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=run)
 
 
-def run(args: argparse.Namespace) -> int:
+def _given(**options: Any) -> dict[str, Any]:
+    """The options given on the command line; the others keep the policy's defaults."""
+    return {name: value for name, value in options.items() if value is not None}
+
+
+def run(args: argparse.Namespace, settings: Settings) -> int:
     from service.batches.processing import RetryPolicy
     from service.batches.taggers import EngineTagger
     from service.batches.webhooks.sending import WebhookPolicy
+    from service.store.database import require_migrated
     from worker.loop import Worker, WorkerPolicy
 
-    settings = get_settings()
     require_migrated(settings.database_url)
     policy = WorkerPolicy(
-        poll_seconds=args.poll_seconds,
-        retry=RetryPolicy(base_seconds=args.retry_base_seconds),
+        **_given(poll_seconds=args.poll_seconds),
+        retry=RetryPolicy(**_given(base_seconds=args.retry_base_seconds)),
         webhooks=WebhookPolicy(
-            max_attempts=args.webhook_max_attempts, base_seconds=args.webhook_retry_base_seconds
+            **_given(
+                max_attempts=args.webhook_max_attempts,
+                base_seconds=args.webhook_retry_base_seconds,
+            )
         ),
     )
     stop = threading.Event()

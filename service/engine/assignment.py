@@ -6,7 +6,7 @@ without evidence): p(s) ~ prior(s) * exp(cos(s) / T). The temperature is the
 inventory's own, fitted by temperature scaling (Guo et al. 2017, see
 calibration.py), or DEFAULT_TEMPERATURE, fitted the same way on a SemCor
 development slice on the rows assign() sees by default (evidence weight k = 4,
-document consistency 0.5, no sense prior; DEVELOPERS.md, "Measurements"). Cosines of
+document consistency 0.5, no sense prior; docs/measurements.md). Cosines of
 contextual vectors sit in a narrow band, hence a small temperature.
 
 Status, in order of precedence:

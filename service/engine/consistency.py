@@ -9,7 +9,7 @@ similarity vector of all occurrences of the same term in the same document:
 
 With w < 1 an occurrence whose own context clearly favours another sense keeps
 it, while a weak, ambiguous context borrows from its neighbours. The default
-weight was chosen on SemCor development documents (see DEVELOPERS.md, "Measurements").
+weight was chosen on SemCor development documents (see docs/measurements.md).
 """
 
 from __future__ import annotations

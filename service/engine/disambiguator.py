@@ -7,7 +7,7 @@ yielded group by group, so memory stays flat however long the stream.
 The sense prior from evidence counts is off by default (sense_prior=True turns
 it on): it gained inside SemCor but cost 1.5 points on SemEval-2013 and 2
 points on the demo inventory's inner split, so label frequencies are not
-trusted to match the documents being tagged (DEVELOPERS.md, "Measurements").
+trusted to match the documents being tagged (docs/measurements.md).
 """
 
 from __future__ import annotations

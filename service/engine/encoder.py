@@ -11,7 +11,7 @@ An occurrence's vector is the mean of its sub-word vectors, taken from the
 mean of hidden layers `DEFAULT_LAYERS`, then L2-normalised. For
 all-MiniLM-L6-v2 that is the last layer alone: on a SemCor development slice it
 beat the mean of the last two, three, four and all layers (see
-DEVELOPERS.md, "Measurements"). Glosses are encoded with the template
+docs/measurements.md). Glosses are encoded with the template
 `DEFAULT_GLOSS_TEMPLATE`, pooled over all of their tokens from the same layers,
 so glosses and occurrences live in one space.
 """
@@ -25,15 +25,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-
-from .windows import PlannedWindow, TextTokens, plan_windows
-
-os.environ.setdefault("HF_HUB_OFFLINE", "1")
-os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
-
 import torch
 from transformers import AutoModel, AutoTokenizer
 from transformers.utils import logging as transformers_logging
+
+from .windows import PlannedWindow, TextTokens, plan_windows
 
 DEFAULT_LAYERS: tuple[int, ...] = (6,)
 DEFAULT_GLOSS_TEMPLATE = "{term}: {gloss}"
@@ -50,16 +46,13 @@ def default_model_path() -> Path:
 
 
 def default_thread_count() -> int:
-    """Half the usable cores, at least one: $WHICHSENSE_TORCH_THREADS overrides.
+    """Half the usable cores, at least one (the deployment's `torch_threads` overrides it).
 
     Intra-op threads spin while they wait for each other; when the cores are
     shared (API, worker and tests side by side) that collapses throughput. On
     the 2-core development machine under load, 2 threads encoded 265 tokens/s
-    and 1 thread 2,006 (DEVELOPERS.md, "Measurements").
+    and 1 thread 2,006 (docs/measurements.md).
     """
-    configured = os.environ.get("WHICHSENSE_TORCH_THREADS")
-    if configured:
-        return max(1, int(configured))
     return max(1, len(os.sched_getaffinity(0)) // 2)
 
 
@@ -257,20 +250,16 @@ class ContextEncoder:
         placed: Sequence[tuple[int, int, int]],
         *,
         details: bool,
-        by_layer: bool = False,
     ) -> tuple[np.ndarray, list[SpanEncoding] | None]:
         spans_of: dict[int, list[int]] = {}
         for span_id, (window, _s, _e) in enumerate(placed):
             spans_of.setdefault(window, []).append(span_id)
-        if by_layer:
-            vectors = np.zeros((len(placed), self.num_layers + 1, self.dimension), np.float32)
-        else:
-            vectors = np.zeros((len(placed), self.dimension), np.float32)
+        vectors = np.zeros((len(placed), self.dimension), np.float32)
         encodings: list[SpanEncoding | None] = [None] * len(placed)
         texts = [text for text, _ in windows]
         for batch in self._batches(texts):
             encoding, output = self._forward([texts[i] for i in batch], attentions=details)
-            pooled = output.hidden_states if by_layer else self._pool_layers(output.hidden_states)
+            pooled = self._pool_layers(output.hidden_states)
             mask = encoding["attention_mask"].numpy().astype(bool)
             for row, window_id in enumerate(batch):
                 length = int(mask[row].sum())
@@ -286,24 +275,15 @@ class ContextEncoder:
                     tokens = self._term_tokens(offsets, special, start, end)
                     if len(tokens) == 0:  # span had no sub-words: read the whole window
                         tokens = np.flatnonzero(~special)
-                    if by_layer:
-                        stacked = torch.stack(
-                            [layer[row, tokens].mean(dim=0) for layer in pooled]
-                        )
-                        vectors[span_id] = stacked.numpy()
-                    else:
-                        vectors[span_id] = pooled[row, tokens].mean(dim=0).numpy()
+                    vectors[span_id] = pooled[row, tokens].mean(dim=0).numpy()
                     if window is not None:
                         encodings[span_id] = SpanEncoding(
                             vector=vectors[span_id], window=window, term_tokens=tokens
                         )
-        if not by_layer:
-            vectors = _normalise(vectors)
-            for span_id, item in enumerate(encodings):
-                if item is not None:
-                    encodings[span_id] = SpanEncoding(
-                        vectors[span_id], item.window, item.term_tokens
-                    )
+        vectors = _normalise(vectors)
+        for span_id, item in enumerate(encodings):
+            if item is not None:
+                encodings[span_id] = SpanEncoding(vectors[span_id], item.window, item.term_tokens)
         return vectors, (encodings if details else None)  # type: ignore[return-value]
 
     def _window_details(self, encoding, output, row, length, window, offsets, special):
@@ -336,15 +316,6 @@ class ContextEncoder:
         vectors, _ = self._encode_planned(windows, placed, details=False)
         return vectors
 
-    def encode_spans_by_layer(self, spans: Sequence[tuple[str, int, int]]) -> np.ndarray:
-        """(spans, layers + 1, dim) unnormalised mean sub-word vectors of every hidden layer
-        (index 0 = embeddings); for measuring which layers to pool."""
-        if not spans:
-            return np.zeros((0, self.num_layers + 1, self.dimension), np.float32)
-        windows, placed = self.plan(spans)
-        vectors, _ = self._encode_planned(windows, placed, details=False, by_layer=True)
-        return vectors
-
     def encode_spans_detailed(self, spans: Sequence[tuple[str, int, int]]) -> list[SpanEncoding]:
         """`encode_spans` plus each window's tokens, attention and rollout (for rationales)."""
         if not spans:
@@ -362,24 +333,17 @@ class ContextEncoder:
             example=examples[0] if examples else "",
         ).strip("; ")
 
-    def encode_texts(self, texts: Sequence[str], by_layer: bool = False) -> np.ndarray:
-        """Mean of all (non-special) token vectors of each text: normalised (texts, dim),
-        or unnormalised (texts, layers + 1, dim) with by_layer."""
-        shape = (len(texts), self.num_layers + 1, self.dimension) if by_layer else (
-            len(texts), self.dimension)
-        vectors = np.zeros(shape, np.float32)
+    def encode_texts(self, texts: Sequence[str]) -> np.ndarray:
+        """Mean of all (non-special) token vectors of each text, normalised: (texts, dim)."""
+        vectors = np.zeros((len(texts), self.dimension), np.float32)
         for batch in self._batches(texts):
             encoding, output = self._forward([texts[i] for i in batch], attentions=False)
             keep = (encoding["attention_mask"].bool() & ~encoding["special_tokens_mask"].bool())
             weights = keep.unsqueeze(-1).float()
             counts = weights.sum(dim=1).clamp(min=1.0)
-            if by_layer:
-                for layer, states in enumerate(output.hidden_states):
-                    vectors[batch, layer] = ((states * weights).sum(dim=1) / counts).numpy()
-            else:
-                states = self._pool_layers(output.hidden_states)
-                vectors[batch] = ((states * weights).sum(dim=1) / counts).numpy()
-        return vectors if by_layer else _normalise(vectors)
+            states = self._pool_layers(output.hidden_states)
+            vectors[batch] = ((states * weights).sum(dim=1) / counts).numpy()
+        return _normalise(vectors)
 
     def encode_glosses(self, glosses: Sequence[tuple[str, str, Sequence[str]]]) -> np.ndarray:
         """Vectors of (term, gloss, examples) triples through the gloss template; normalised."""

@@ -104,13 +104,6 @@ _lock = threading.Lock()
 _readers: dict[Path, WordNetCorpusReader] = {}
 
 
-def _cache_root() -> Path:
-    configured = os.environ.get("WHICHSENSE_CACHE_DIR")
-    if configured:
-        return Path(configured)
-    return Path(os.environ.get("XDG_CACHE_HOME", Path.home() / ".cache")) / "whichsense"
-
-
 def _source_digest(source: Path, files: list[Path]) -> str:
     """Name the copy after the source folder and its files' sizes and times."""
     digest = hashlib.sha256(str(source).encode())
@@ -137,7 +130,7 @@ def _build_copy(source: Path, files: list[Path], target: Path) -> None:
         shutil.rmtree(staging, ignore_errors=True)
 
 
-def _folder_with_lexnames(source: Path) -> Path:
+def _folder_with_lexnames(source: Path, cache_dir: Path | None) -> Path:
     """Return `source` itself if complete, else a private cached copy with `lexnames` added.
 
     Copies, not links: NLTK 3.10 refuses symlinks that leave the corpus root
@@ -146,7 +139,8 @@ def _folder_with_lexnames(source: Path) -> Path:
     if (source / "lexnames").is_file():
         return source
     files = sorted(entry for entry in source.iterdir() if entry.is_file())
-    for root in (_cache_root(), Path(tempfile.gettempdir()) / f"whichsense-{os.getuid()}"):
+    roots = [cache_dir] if cache_dir is not None else []
+    for root in (*roots, Path(tempfile.gettempdir()) / f"whichsense-{os.getuid()}"):
         target = root / f"wordnet-{_source_digest(source, files)}"
         if (target / "lexnames").is_file():
             return target
@@ -158,8 +152,13 @@ def _folder_with_lexnames(source: Path) -> Path:
     raise OSError(f"cannot create a WordNet copy with lexnames for {source}")
 
 
-def open_wordnet(path: str | os.PathLike[str] = DEFAULT_WORDNET_PATH) -> WordNetCorpusReader:
+def open_wordnet(
+    path: str | os.PathLike[str] = DEFAULT_WORDNET_PATH, *, cache_dir: Path | None = None
+) -> WordNetCorpusReader:
     """Open (once per folder) the WordNet database at `path` for offline reading.
+
+    A folder without `lexnames` is copied, with one, under `cache_dir` (else a
+    private folder in the temporary directory).
 
     Raises FileNotFoundError if the folder lacks WordNet's index files.
     """
@@ -170,7 +169,7 @@ def open_wordnet(path: str | os.PathLike[str] = DEFAULT_WORDNET_PATH) -> WordNet
             return reader
         if not (source / "index.noun").is_file():
             raise FileNotFoundError(f"no WordNet database (index.noun) under {source}")
-        folder = _folder_with_lexnames(source)
+        folder = _folder_with_lexnames(source, cache_dir)
         if str(folder) not in nltk.data.path:
             nltk.data.path.append(str(folder))
         with warnings.catch_warnings():

@@ -18,13 +18,13 @@ in charge until a sense has several labels: on the demo's inner split evidence
 then helps (0.810 -> 0.820) instead of hurting (-> 0.795), and SemCor dev is
 unchanged (0.677 -> 0.679 with document consistency). Scoring gloss and
 contexts separately, per-term centring and nearest-item scoring were measured
-too and did no better on both sets (DEVELOPERS.md, "Measurements").
+too and did no better on both sets (docs/measurements.md).
 
 Evidence counts also give each term a sense prior, p(s) = (n_s + a) / (N + S a)
 (add-a smoothing, a = DEFAULT_PRIOR_SMOOTHING): without labels it is uniform,
 with them it says how often each sense turns up in the curator's data. a = 4
 rather than 1 because it held up better when the labels came from other
-genres than the text (SemCor cross-genre check in DEVELOPERS.md, "Measurements").
+genres than the text (SemCor cross-genre check in docs/measurements.md).
 The Disambiguator leaves it off by default: it helped only inside SemCor and
 cost accuracy on SemEval-2013 and on the demo inventory, whose labels need
 not follow the frequencies of the documents being tagged.

@@ -27,7 +27,7 @@ from .prototypes import NearestEvidence
 
 DEFAULT_TOP_WORDS = 5
 # Erasure costs one forward pass per word; the words nearest the term carry the
-# context (24 nearest gave the agreement figures in DEVELOPERS.md, "Measurements").
+# context (24 nearest gave the agreement figures in docs/measurements.md).
 MAX_ERASED_WORDS = 12
 ATTENTION_METHOD = "last-layer-head-average"
 ROLLOUT_METHOD = "attention-rollout"

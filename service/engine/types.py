@@ -38,6 +38,12 @@ class TermSpec:
     inflect: bool = True
 
 
+# Inclusive bounds of the per-inventory thresholds: the inventory JSON Schema, the API's
+# settings patch and the deployment defaults all read them from here.
+REVIEW_THRESHOLD_BOUNDS: tuple[float, float] = (0.0, 1.0)  # a confidence
+ABSTAIN_THRESHOLD_BOUNDS: tuple[float, float] = (-1.0, 1.0)  # a cosine similarity
+
+
 @dataclass(frozen=True)
 class InventorySettings:
     """Per-inventory decision settings; the temperature comes from calibration."""

@@ -97,9 +97,10 @@ def _digest(lines: Sequence[str]) -> str:
 
 
 def encode_instances(
-    encoder: Any, instances: Sequence[Instance], use_cache: bool = True
+    encoder: Any, instances: Sequence[Instance], cache_dir: Path | None
 ) -> tuple[np.ndarray, bool]:
-    """Unit vectors of every instance in context (through the engine's encoder), cached."""
+    """Unit vectors of every instance in context (through the engine's encoder), cached
+    under `cache_dir` (None: not cached)."""
     spans = [(i.text, i.start, i.end) for i in instances]
     if not spans:
         return np.zeros((0, encoder.dimension), np.float32), False
@@ -107,11 +108,11 @@ def encode_instances(
     def compute() -> np.ndarray:
         return np.asarray(encoder.encode_spans(spans), np.float32)
 
-    if not use_cache:
+    if cache_dir is None:
         return compute(), False
     parts = {"spans": _digest([f"{s}:{e}:{t}" for t, s, e in spans]),
              "model": encoder.model_id, "recipe": SPAN_RECIPE}
-    return cached_array(parts, compute)
+    return cached_array(parts, compute, cache_dir)
 
 
 def candidate_keys(reader: WordNetCorpusReader, instance: Instance) -> list[str]:
@@ -122,11 +123,11 @@ class GlossTable:
     """Gloss vectors of WordNet senses, encoded in one batch per call and cached on disk."""
 
     def __init__(self, encoder: Any, reader: WordNetCorpusReader, template: str,
-                 use_cache: bool = True):
+                 cache_dir: Path | None):
         self.encoder = encoder
         self.reader = reader
         self.template = template
-        self.use_cache = use_cache
+        self.cache_dir = cache_dir
         self.rows: dict[str, np.ndarray] = {}
 
     def ensure(self, keys: Sequence[str]) -> None:
@@ -141,10 +142,10 @@ class GlossTable:
         def compute() -> np.ndarray:
             return np.asarray(self.encoder.encode_texts(texts), np.float32)
 
-        if self.use_cache:
+        if self.cache_dir is not None:
             parts = {"texts": _digest(texts), "model": self.encoder.model_id,
                      "recipe": GLOSS_RECIPE}
-            vectors, _ = cached_array(parts, compute)
+            vectors, _ = cached_array(parts, compute, self.cache_dir)
         else:
             vectors = compute()
         self.rows.update(zip(missing, vectors, strict=True))
@@ -208,12 +209,14 @@ def run_benchmark(
     encoder: Any,
     limit: int | None = None,
     train_limit: int | None = None,
-    use_cache: bool = True,
+    cache_dir: Path | None = None,
     variants: bool = True,
     extra_recipes: dict[str, PrototypeRecipe] | None = None,
     log: Log = lambda _message: None,
 ) -> dict[str, Any]:
-    """Run the benchmark and return its figures as JSON-ready data (F1 values in percent)."""
+    """Run the benchmark and return its figures as JSON-ready data (F1 values in percent).
+
+    Encodings are cached under `cache_dir` (None: nothing is read or written)."""
     config = config or BenchmarkConfig()
     started = time.perf_counter()
     timings: dict[str, float] = {}
@@ -237,18 +240,18 @@ def run_benchmark(
         f"test: {len(test)} instances")
     clock = lap("read", started)
 
-    train_vectors, train_cached = encode_instances(encoder, train, use_cache)
+    train_vectors, train_cached = encode_instances(encoder, train, cache_dir)
     clock = lap("encode_train", clock)
     log(f"encoded training instances ({'cache' if train_cached else 'computed'}) "
         f"in {timings['encode_train']} s")
-    test_vectors, test_cached = encode_instances(encoder, test, use_cache)
+    test_vectors, test_cached = encode_instances(encoder, test, cache_dir)
     clock = lap("encode_test", clock)
 
     held = [t for t, h in zip(train, is_held, strict=True) if h][: config.calibration_instances]
     held_vectors = train_vectors[is_held][: config.calibration_instances]
     test_candidates = [candidate_keys(reader, i) for i in test]
     held_candidates = [candidate_keys(reader, i) for i in held]
-    glosses = GlossTable(encoder, reader, config.gloss_template, use_cache)
+    glosses = GlossTable(encoder, reader, config.gloss_template, cache_dir)
     glosses.ensure([k for keys in test_candidates + held_candidates for k in keys])
     clock = lap("encode_glosses", clock)
 

@@ -1,7 +1,8 @@
 """Encoded corpora on disk, keyed by what they were computed from.
 
 Encoding SemCor takes minutes on two cores; a benchmark run should pay it
-once. An array is stored as `<cache>/encoded/<key>.npy`, where the key hashes
+once. An array is stored as `<root>/encoded/<key>.npy` (the caller passes the
+settings' cache folder), where the key hashes
 the input file's bytes, the encoder's model id (weights digest and layers) and
 the recipe that turned the file into spans. A different file, model or recipe
 gets a new key, so a stale array is never read.
@@ -19,27 +20,6 @@ from typing import Any
 
 import numpy as np
 
-CACHE_ENV = "WHICHSENSE_CACHE_DIR"
-
-
-def cache_root() -> Path:
-    """$WHICHSENSE_CACHE_DIR, else the settings' cache folder (~/.cache/whichsense)."""
-    configured = os.environ.get(CACHE_ENV)
-    if configured:
-        return Path(configured)
-    from service.config import get_settings
-
-    return get_settings().cache_dir
-
-
-def file_digest(path: str | Path) -> str:
-    """SHA-256 of a file's bytes."""
-    digest = hashlib.sha256()
-    with Path(path).open("rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
-
 
 def cache_key(parts: dict[str, Any]) -> str:
     """A short stable hash of the JSON-serialisable `parts`."""
@@ -50,14 +30,14 @@ def cache_key(parts: dict[str, Any]) -> str:
 def cached_array(
     parts: dict[str, Any],
     compute: Callable[[], np.ndarray],
-    root: Path | None = None,
+    root: Path,
 ) -> tuple[np.ndarray, bool]:
     """The array stored under `parts`, computing and storing it first if absent.
 
     Returns (array, whether it came from the cache). Writes go to a temporary
     file renamed into place, so a killed run never leaves half an array.
     """
-    folder = (root or cache_root()) / "encoded"
+    folder = root / "encoded"
     path = folder / f"{cache_key(parts)}.npy"
     if path.is_file():
         try:

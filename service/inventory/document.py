@@ -15,7 +15,14 @@ from typing import Any
 
 from jsonschema import Draft202012Validator
 
-from service.engine.types import InventorySettings, InventorySpec, SenseSpec, TermSpec
+from service.engine.types import (
+    ABSTAIN_THRESHOLD_BOUNDS,
+    REVIEW_THRESHOLD_BOUNDS,
+    InventorySettings,
+    InventorySpec,
+    SenseSpec,
+    TermSpec,
+)
 
 FORMAT = "whichsense.inventory/1"
 
@@ -43,9 +50,20 @@ class InventoryInvalid(ValueError):
 
 @lru_cache(maxsize=1)
 def inventory_schema() -> dict[str, Any]:
-    """The published JSON Schema of the inventory document."""
+    """The published JSON Schema of the inventory document.
+
+    The threshold bounds are the engine's (`REVIEW_THRESHOLD_BOUNDS`,
+    `ABSTAIN_THRESHOLD_BOUNDS`), written in here so that they have one owner.
+    """
     text = resources.files("service.inventory").joinpath("schema.json").read_text("utf-8")
-    return json.loads(text)
+    schema = json.loads(text)
+    settings = schema["properties"]["settings"]["properties"]
+    for name, (low, high) in (
+        ("review_threshold", REVIEW_THRESHOLD_BOUNDS),
+        ("abstain_threshold", ABSTAIN_THRESHOLD_BOUNDS),
+    ):
+        settings[name] = {"type": "number", "minimum": low, "maximum": high}
+    return schema
 
 
 def _pointer(path: Any) -> str:

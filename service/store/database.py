@@ -20,7 +20,7 @@ from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.config import Settings, get_settings
+from service.config import Settings
 
 MIGRATIONS_DIR = Path(__file__).resolve().parent.parent.parent / "migrations"
 
@@ -72,9 +72,8 @@ def session_factory(url: str) -> sessionmaker[Session]:
 
 
 @contextmanager
-def session_scope(settings: Settings | None = None) -> Iterator[Session]:
+def session_scope(settings: Settings) -> Iterator[Session]:
     """A session that commits on success and rolls back on any error."""
-    settings = settings or get_settings()
     with session_scope_for(settings.database_url) as session:
         yield session
 

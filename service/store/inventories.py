@@ -15,8 +15,7 @@ from typing import Any
 from sqlalchemy import delete, select
 from sqlalchemy.orm import Session
 
-from service.config import get_settings
-from service.engine.types import InventorySpec
+from service.engine.types import InventorySettings, InventorySpec
 from service.inventory.document import (
     fold,
     parse_inventory_document,
@@ -57,12 +56,11 @@ def get_inventory(
     return inventory
 
 
-def _with_default_settings(document: Document) -> Document:
-    settings = get_settings()
+def _with_default_settings(document: Document, defaults: InventorySettings) -> Document:
     document = copy.deepcopy(document)
     chosen = document.setdefault("settings", {})
-    chosen.setdefault("review_threshold", settings.review_threshold)
-    chosen.setdefault("abstain_threshold", settings.abstain_threshold)
+    chosen.setdefault("review_threshold", defaults.review_threshold)
+    chosen.setdefault("abstain_threshold", defaults.abstain_threshold)
     chosen.setdefault("temperature", None)
     return document
 
@@ -116,10 +114,18 @@ def _exists(session: Session, team_id: int, name: str) -> bool:
 
 
 def create_inventory(
-    session: Session, team_id: int, document: Document, *, key_id: str | None = None
+    session: Session,
+    team_id: int,
+    document: Document,
+    *,
+    defaults: InventorySettings,
+    key_id: str | None = None,
 ) -> Inventory:
-    """Store a new inventory at version 1; Conflict if the team has one of that name."""
-    spec = parse_inventory_document(_with_default_settings(document), version=1)
+    """Store a new inventory at version 1; Conflict if the team has one of that name.
+
+    `defaults` fills the thresholds the document leaves out (the deployment's settings).
+    """
+    spec = parse_inventory_document(_with_default_settings(document, defaults), version=1)
     if _exists(session, team_id, spec.name):
         raise Conflict(f"inventory '{spec.name}' already exists")
     inventory = Inventory(
@@ -188,13 +194,18 @@ def replace_inventory(
 
 
 def import_inventory_document(
-    session: Session, team_id: int, data: Document, *, key_id: str | None = None
+    session: Session,
+    team_id: int,
+    data: Document,
+    *,
+    defaults: InventorySettings,
+    key_id: str | None = None,
 ) -> Inventory:
     """Create the inventory, or replace its content as a new version if it exists."""
     name = data.get("name") if isinstance(data, dict) else None
     if isinstance(name, str) and _exists(session, team_id, name):
         return replace_inventory(session, team_id, name, data, key_id=key_id)
-    return create_inventory(session, team_id, data, key_id=key_id)
+    return create_inventory(session, team_id, data, defaults=defaults, key_id=key_id)
 
 
 def delete_inventory(

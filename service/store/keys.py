@@ -10,7 +10,6 @@ import hashlib
 import hmac
 import secrets
 from dataclasses import dataclass
-from typing import Literal
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
@@ -18,9 +17,8 @@ from sqlalchemy.orm import Session
 from service.store.audit import record_audit
 from service.store.errors import NotFound
 from service.store.models import ApiKey, utcnow
+from service.store.scopes import SCOPES, Scope
 
-Scope = Literal["ingest", "review", "admin"]
-SCOPES: tuple[Scope, ...] = ("ingest", "review", "admin")
 PREFIX = "ws"
 
 

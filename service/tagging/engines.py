@@ -1,4 +1,11 @@
-"""Engine objects cached per process, so no request or chunk rebuilds what it can reuse.
+"""The one engine factory, and engine objects cached per process.
+
+`build_disambiguator(settings, inventory, evidence)` is how every path builds
+the engine users run: `whichsense tag`, `evaluate`, `calibrate`, the API and
+the worker (through `EngineCache`). `load_encoder(settings)` gives the
+process's encoder for the configured model directory and thread count.
+
+The cache keeps, so no request or chunk rebuilds what it can reuse:
 
 - one `ContextEncoder` per model directory (loading it takes seconds);
 - one `OccurrenceFinder` per inventory version (it also counts occurrences at intake);
@@ -33,14 +40,56 @@ from service.engine import (
     Disambiguator,
     Document,
     DocumentResult,
+    Evidence,
     InventorySpec,
     OccurrenceFinder,
+    PrototypeBook,
+    open_wordnet,
 )
+from service.engine.types import Status
 from service.store.evidence import load_evidence
 from service.store.inventories import load_version_spec
 from service.store.models import InventoryVersion
 
 log = logging.getLogger(__name__)
+
+
+def load_encoder(settings: Settings) -> ContextEncoder:
+    """The process's encoder for `settings` (loaded once per model directory)."""
+    return shared_engines().encoder(settings)
+
+
+def build_disambiguator(
+    settings: Settings,
+    inventory: InventorySpec,
+    evidence: Sequence[Evidence] = (),
+    *,
+    encoder: ContextEncoder | None = None,
+    finder: OccurrenceFinder | None = None,
+    prototypes: PrototypeBook | None = None,
+    erasure_for: frozenset[Status] = frozenset({"review"}),
+) -> Disambiguator:
+    """The engine users run, for one inventory version and its evidence.
+
+    Evidence naming a sense this version lacks is left out (evidence outlives
+    senses a curator removed). `prototypes` continues a book built earlier for
+    the same inventory version (only `evidence` is then encoded and added).
+    """
+    encoder = encoder if encoder is not None else load_encoder(settings)
+    if finder is None:
+        finder = OccurrenceFinder(inventory, open_wordnet(cache_dir=settings.cache_dir))
+    disambiguator = Disambiguator(
+        encoder,
+        inventory,
+        prototypes=prototypes,
+        finder=finder,
+        # The engine counts characters; a document within the byte limit is within this too.
+        max_document_chars=settings.max_document_bytes,
+        erasure_for=erasure_for,
+    )
+    if evidence:
+        disambiguator.prototypes.add_evidence(evidence, encoder=encoder, skip_unknown=True)
+    return disambiguator
 
 
 class EngineRetired(RuntimeError):
@@ -92,12 +141,14 @@ class EngineCache:
         self.builds = 0
         self.advances = 0
 
-    def encoder(self, model_dir: Path) -> ContextEncoder:
+    def encoder(self, settings: Settings) -> ContextEncoder:
+        """The encoder of the configured model directory, loaded on first use."""
+        model_dir = resolve_model_dir(settings)
         with self._lock:
             encoder = self._encoders.get(model_dir)
             if encoder is None:
                 log.info("loading the encoder from %s", model_dir)
-                encoder = ContextEncoder(model_dir)
+                encoder = ContextEncoder(model_dir, num_threads=settings.torch_threads)
                 self._encoders[model_dir] = encoder
             return encoder
 
@@ -141,7 +192,7 @@ class EngineCache:
     def engine(self, session: Session, settings: Settings, pin: Pin) -> PinnedEngine:
         """The engine for `pin`, building or advancing one as needed (reads via `session`)."""
         spec = self.spec(session, settings.database_url, pin.inventory_id, pin.version)
-        encoder = self.encoder(resolve_model_dir(settings))
+        encoder = self.encoder(settings)
         base: _Base = (
             settings.database_url,
             spec,
@@ -164,28 +215,26 @@ class EngineCache:
                 added = load_evidence(session, inventory_id, after=watermark, until=pin.watermark)
                 with engine.lock:
                     engine.retired = True
-                    engine.disambiguator.prototypes.add_evidence(added, encoder=encoder)
-                fresh = PinnedEngine(
-                    Disambiguator(
-                        encoder,
+                    advanced = build_disambiguator(
+                        settings,
                         spec,
-                        prototypes=engine.disambiguator.prototypes,
+                        added,
+                        encoder=encoder,
                         finder=engine.disambiguator.finder,
-                        max_document_chars=settings.max_document_bytes,
-                    ),
-                    pin.watermark,
-                )
+                        prototypes=engine.disambiguator.prototypes,
+                    )
+                fresh = PinnedEngine(advanced, pin.watermark)
                 del self._engines[(base, watermark)]
                 self.advances += 1
             else:
                 evidence = load_evidence(session, inventory_id, until=pin.watermark)
                 fresh = PinnedEngine(
-                    Disambiguator(
-                        encoder,
+                    build_disambiguator(
+                        settings,
                         spec,
                         evidence,
+                        encoder=encoder,
                         finder=self.finder(settings.database_url, spec),
-                        max_document_chars=settings.max_document_bytes,
                     ),
                     pin.watermark,
                 )

@@ -4,7 +4,7 @@ The sentence encoder reads a gloss as a short text pooled over all of its
 tokens, so the lemma leads ("bass: the lowest part of the musical range")
 and, by default, the synset's examples follow, which put the lemma in
 context. The variants were compared on held-out SemCor documents
-(DEVELOPERS.md, "Measurements").
+(docs/measurements.md).
 """
 
 from __future__ import annotations

@@ -18,7 +18,7 @@ Each candidate sense k of an occurrence vector x (unit length) gets
   brings to an ambiguous word.
 
 The defaults were chosen on held-out SemCor documents; the measurements are
-in DEVELOPERS.md, "Measurements".
+in docs/measurements.md.
 """
 
 from __future__ import annotations

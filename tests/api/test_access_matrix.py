@@ -147,7 +147,9 @@ _counter = itertools.count()
 def make_world(settings: Any, team_id: int) -> World:
     name = f"inv-{next(_counter)}"
     with session_scope(settings) as session:
-        create_inventory(session, team_id, _inventory(name))
+        create_inventory(
+            session, team_id, _inventory(name), defaults=settings.inventory_defaults()
+        )
         batch = start_batch(
             session,
             team_id,

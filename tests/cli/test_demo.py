@@ -9,6 +9,7 @@ import pytest
 
 from service.cli.demo import split_labels
 from service.cli.main import main
+from service.config import Settings
 
 DOCUMENTS = [
     {"id": "d1", "text": "Caught a largemouth bass off the jetty at dawn, then a second bass."},
@@ -80,11 +81,10 @@ def test_split_keeps_each_document_on_one_side(tiny_corpus):
 
 
 @pytest.mark.slow
-def test_demo_runs_the_main_job_and_reports(tiny_corpus, tmp_path, monkeypatch, capsys):
-    monkeypatch.setenv("WHICHSENSE_DATABASE_URL", f"sqlite:///{tmp_path / 'demo.db'}")
-    from service.config import get_settings
-
-    get_settings.cache_clear()
+def test_demo_runs_the_main_job_and_reports(tiny_corpus, tmp_path, capsys):
+    settings = Settings(
+        database_url=f"sqlite:///{tmp_path / 'demo.db'}", cache_dir=tmp_path / "cache"
+    )
     output = tmp_path / "out"
     status = main(
         [
@@ -97,9 +97,9 @@ def test_demo_runs_the_main_job_and_reports(tiny_corpus, tmp_path, monkeypatch, 
             str(_free_port()),
             "--fresh",
             "--exit",
-        ]
+        ],
+        settings=settings,
     )
-    get_settings.cache_clear()
     printed = capsys.readouterr().out
     assert status == 0, printed
     results = [json.loads(line) for line in (output / "results.jsonl").read_text().splitlines()]

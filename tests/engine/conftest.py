@@ -1,32 +1,16 @@
-"""Engine fixtures: one encoder and one WordNet reader per test session (loading costs seconds)."""
+"""Engine fixtures: a small inventory (the encoder and WordNet are the root conftest's, loaded
+once per session)."""
 
 from __future__ import annotations
 
-import os
-
 import pytest
 
-os.environ.setdefault("HF_HUB_OFFLINE", "1")
-os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
-
-from service.engine.encoder import ContextEncoder
-from service.engine.lexicon import open_wordnet
 from service.engine.types import (
     InventorySettings,
     InventorySpec,
     SenseSpec,
     TermSpec,
 )
-
-
-@pytest.fixture(scope="session")
-def encoder() -> ContextEncoder:
-    return ContextEncoder()
-
-
-@pytest.fixture(scope="session")
-def wordnet():
-    return open_wordnet()
 
 
 @pytest.fixture(scope="session")

@@ -35,15 +35,14 @@ def test_reader_works_offline_and_is_shared(wordnet):
     assert wordnet.map_wn() is None  # no attempt to load NLTK's own wordnet package
 
 
-def test_a_folder_without_lexnames_gets_a_private_copy(tmp_path, monkeypatch):
+def test_a_folder_without_lexnames_gets_a_private_copy(tmp_path):
     source = tmp_path / "wn"
     source.mkdir()
     for entry in WORDNET.iterdir():
         if entry.is_file():
             shutil.copyfile(entry, source / entry.name)
     assert not (source / "lexnames").exists()
-    monkeypatch.setenv("WHICHSENSE_CACHE_DIR", str(tmp_path / "cache"))
-    reader = open_wordnet(source)
+    reader = open_wordnet(source, cache_dir=tmp_path / "cache")
     assert reader.synsets("lantern")[0].lexname() == "noun.artifact"
     (copy,) = (tmp_path / "cache").iterdir()
     assert (copy / "lexnames").read_text() == lexnames_text()

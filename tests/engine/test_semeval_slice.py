@@ -20,17 +20,12 @@ import pytest
 
 from service.engine.disambiguator import Disambiguator, SpanQuery
 from service.engine.types import Evidence, InventorySpec, SenseSpec, TermSpec
+from tests.conftest import shared_data
 
-DATA = Path(__file__).resolve().parents[3] / "shared" / "data"
-SEMEVAL = DATA / "semeval2013-en.jsonl.gz"
-SEMCOR = DATA / "semcor30.jsonl.gz"
 TEST_DOCUMENTS = 4  # the first four SemEval-2013 documents
 SENTENCES_PER_LEMMA = 6
 
-pytestmark = pytest.mark.skipif(
-    not (SEMEVAL.is_file() and SEMCOR.is_file()),
-    reason=f"sense-annotated corpora not found under {DATA}",
-)
+pytestmark = pytest.mark.slow
 
 
 def sentences(path: Path) -> Iterator[tuple[str, str, list[dict]]]:
@@ -74,9 +69,10 @@ def wordnet_term(wordnet, lemma: str, pos: str) -> TermSpec | None:
 
 
 def test_engine_beats_most_frequent_sense_on_a_semeval_2013_slice(encoder, wordnet):
+    semeval, semcor = shared_data("semeval2013-en.jsonl.gz", "semcor30.jsonl.gz")
     documents = []
     test_items: list[tuple[str, str, dict]] = []
-    for doc, text, instances in sentences(SEMEVAL):
+    for doc, text, instances in sentences(semeval):
         if doc not in documents:
             documents.append(doc)
         if len(documents) > TEST_DOCUMENTS:
@@ -101,7 +97,7 @@ def test_engine_beats_most_frequent_sense_on_a_semeval_2013_slice(encoder, wordn
     evidence: list[Evidence] = []
     counts: dict[tuple[str, str], Counter[str]] = {key: Counter() for key in terms}
     taken: Counter[tuple[str, str]] = Counter()
-    for _, text, instances in sentences(SEMCOR):
+    for _, text, instances in sentences(semcor):
         for item in instances:
             key = (item["lemma"], item["pos"])
             if key not in terms or taken[key] >= SENTENCES_PER_LEMMA:

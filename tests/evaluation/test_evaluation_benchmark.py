@@ -1,5 +1,5 @@
 """The WordNet benchmark on a small slice: prototypes from the start of SemCor, a few hundred
-SemEval-2013 instances. Figures, not timings: speed is printed by scripts/benchmark_wordnet.py."""
+SemEval-2013 instances. Figures, not timings: speed is printed by `whichsense benchmark wordnet`."""
 
 from __future__ import annotations
 
@@ -22,15 +22,16 @@ TEST_INSTANCES = 300
 
 
 @pytest.fixture(scope="module")
-def slice_result(corpora, wordnet, last_layer_encoder, tmp_path_factory):  # type: ignore[no-untyped-def]
+def slice_result(corpora, wordnet, encoder, tmp_path_factory):  # type: ignore[no-untyped-def]
     semcor, semeval = corpora
     config = replace(BenchmarkConfig(), calibration_instances=300)
     return run_benchmark(
-        semcor, semeval, config, reader=wordnet, encoder=last_layer_encoder,
-        limit=TEST_INSTANCES, train_limit=TRAIN_SENTENCES, use_cache=False,
+        semcor, semeval, config, reader=wordnet, encoder=encoder,
+        limit=TEST_INSTANCES, train_limit=TRAIN_SENTENCES, cache_dir=None,
     )
 
 
+@pytest.mark.slow  # encodes about 20,000 SemCor instances
 def test_slice_beats_the_same_slice_most_frequent_sense(slice_result) -> None:  # type: ignore[no-untyped-def]
     # SemEval-2013 (Navigli, Jurgens & Vannella 2013) is nouns only, every instance has
     # WordNet senses, so all are answered and F1 = precision = recall.
@@ -42,6 +43,7 @@ def test_slice_beats_the_same_slice_most_frequent_sense(slice_result) -> None:  
     assert slice_result["f1"] > slice_result["variants"]["gloss only"]
 
 
+@pytest.mark.slow
 def test_slice_result_carries_calibration_and_is_json(slice_result) -> None:  # type: ignore[no-untyped-def]
     assert slice_result["temperature"] > 0
     assert slice_result["calibration_instances"] > 50
@@ -57,30 +59,30 @@ def test_slice_result_carries_calibration_and_is_json(slice_result) -> None:  # 
 
 
 def test_encoded_instances_are_cached_by_content(  # type: ignore[no-untyped-def]
-    last_layer_encoder, tmp_path: Path, monkeypatch
+    encoder, tmp_path: Path
 ) -> None:
-    monkeypatch.setenv("WHICHSENSE_CACHE_DIR", str(tmp_path))
     text = "The bass swam past the dock while the band played."
     instances = [Instance("a", "d", text, 4, 8, "bass", "n", ("bass%1:13:01::",)),
                  Instance("b", "d", text, 38, 42, "band", "n", ("band%1:14:00::",))]
-    first, cached_first = encode_instances(last_layer_encoder, instances)
-    again, cached_again = encode_instances(last_layer_encoder, instances)
+    first, cached_first = encode_instances(encoder, instances, tmp_path)
+    again, cached_again = encode_instances(encoder, instances, tmp_path)
     assert (cached_first, cached_again) == (False, True)
     np.testing.assert_array_equal(first, again)
     np.testing.assert_allclose(np.linalg.norm(first, axis=1), 1.0, atol=1e-5)
     moved = [replace(instances[0], start=0, end=3)]  # other span, other key
-    assert encode_instances(last_layer_encoder, moved)[1] is False
+    assert encode_instances(encoder, moved, tmp_path)[1] is False
     assert len(list((tmp_path / "encoded").glob("*.npy"))) == 2
 
 
+@pytest.mark.slow  # encodes 300 SemCor sentences
 def test_cli_reads_an_unseen_file_and_ends_with_one_json_line(  # type: ignore[no-untyped-def]
-    corpora, wordnet, tmp_path: Path, monkeypatch, capsys
+    corpora, wordnet, tmp_path: Path, capsys
 ) -> None:
     import gzip
 
     from service.cli.main import main
+    from service.config import Settings
 
-    monkeypatch.setenv("WHICHSENSE_CACHE_DIR", str(tmp_path / "cache"))
     lines = [
         {"doc": "new/1", "sent": "1", "tokens": ["The", "bank", "raised", "interest", "rates", "."],
          "instances": [
@@ -102,7 +104,7 @@ def test_cli_reads_an_unseen_file_and_ends_with_one_json_line(  # type: ignore[n
         handle.write("\n".join(json.dumps(line) for line in lines) + "\n")
     semcor, _ = corpora
     code = main(["benchmark", "wordnet", "--train", str(semcor), "--test", str(test_file),
-                 "--train-limit", "300", "--json"])
+                 "--train-limit", "300", "--json"], settings=Settings(cache_dir=tmp_path / "cache"))
     assert code == 0
     last = capsys.readouterr().out.strip().splitlines()[-1]
     result = json.loads(last)

@@ -9,6 +9,7 @@ from pathlib import Path
 import pytest
 
 from service.cli.main import main
+from service.config import Settings
 from service.evaluation.report import Outcome, render_html, summarise
 
 HOSTILE_TEXT = 'Play the <script>alert("bass")</script> bass & drums loud.'
@@ -122,7 +123,7 @@ def test_evaluate_command_writes_summary_and_report(tmp_path: Path) -> None:
     labeled.write_text("\n".join(json.dumps(r) for r in rows) + "\n", encoding="utf-8")
     out = tmp_path / "report"
     code = main(["evaluate", str(labeled), "--inventory", str(inventory), "-o", str(out),
-                 "--target-accuracy", "0.75"])
+                 "--target-accuracy", "0.75"], settings=Settings(cache_dir=tmp_path / "cache"))
     assert code == 0
     summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
     assert summary["n"] == 4

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.migration import MigrationContext
 from sqlalchemy import inspect
@@ -33,6 +34,7 @@ def test_sqlite_upgrade_downgrade_upgrade(tmp_path):
     _assert_matches_models(url)
 
 
+@pytest.mark.slow
 def test_postgres_fresh_database_upgrade(postgres_admin_url):
     url = create_postgres_database(postgres_admin_url)
     try:

@@ -6,7 +6,6 @@ import gzip
 import json
 from pathlib import Path
 
-from service.cli.main import main
 from service.config import Settings
 from service.store.database import session_scope
 from service.store.evidence import count_evidence
@@ -32,9 +31,9 @@ def only_team(session) -> int:  # type: ignore[no-untyped-def]
 
 
 def test_wordnet_inventory_then_corpus_and_labeled_evidence(  # type: ignore[no-untyped-def]
-    settings: Settings, tmp_path: Path, wordnet, capsys
+    cli, settings: Settings, tmp_path: Path, wordnet, capsys
 ) -> None:
-    assert main(["inventory", "wordnet", "wn-bass", "--lemma", "bass", "--pos", "n"]) == 0
+    assert cli(["inventory", "wordnet", "wn-bass", "--lemma", "bass", "--pos", "n"]) == 0
     with session_scope(settings) as session:
         spec = load_inventory_spec(session, only_team(session), "wn-bass")
     assert [t.term for t in spec.terms] == ["bass"] and len(spec.terms[0].senses) == 8
@@ -42,7 +41,7 @@ def test_wordnet_inventory_then_corpus_and_labeled_evidence(  # type: ignore[no-
     corpus = tmp_path / "tiny.jsonl.gz"
     with gzip.open(corpus, "wt", encoding="utf-8") as handle:
         handle.write("\n".join(json.dumps(line) for line in CORPUS) + "\n")
-    assert main(["evidence", "import", str(corpus), "--inventory", "wn-bass"]) == 0
+    assert cli(["evidence", "import", str(corpus), "--inventory", "wn-bass"]) == 0
     out = capsys.readouterr()
     assert "stored 1 evidence items" in out.out
     assert "1 skipped because no label resolved" in out.out
@@ -56,7 +55,7 @@ def test_wordnet_inventory_then_corpus_and_labeled_evidence(  # type: ignore[no-
          "sense": "bass.music"},  # not a sense of this inventory
     ]
     labeled.write_text("\n".join(json.dumps(r) for r in rows) + "\n", encoding="utf-8")
-    assert main(["evidence", "import", str(labeled), "--inventory", "wn-bass"]) == 0
+    assert cli(["evidence", "import", str(labeled), "--inventory", "wn-bass"]) == 0
     out = capsys.readouterr()
     assert "stored 1 evidence items" in out.out
     assert "unknown sense for 'wn-bass'): 1" in out.err

@@ -10,8 +10,7 @@ import pytest
 
 from service.wordnet.inventory import sense_spec
 from service.wordnet.senses import lexname_tag, offset_tag, resolve_sense_key, senses_of
-
-WORDNET_DIR = Path("/usr/share/wordnet")
+from tests.conftest import WORDNET_DIR
 
 # WordNet 3.0's wnstats(7WN) manual page, "Number of words, synsets, and senses"
 # (adjective figures include satellites). The same page ships with Debian's
@@ -24,11 +23,13 @@ WORD_SENSE_PAIRS = 206_941
 WNSTATS_PAGE = Path("/usr/share/man/man7/wnstats.7WN.gz")
 
 
+@pytest.mark.slow
 def test_synset_counts_match_wnstats(wordnet) -> None:  # type: ignore[no-untyped-def]
     counts = {pos: sum(1 for _ in wordnet.all_synsets(pos)) for pos in SYNSETS}
     assert counts == SYNSETS
 
 
+@pytest.mark.slow
 def test_unique_strings_and_sense_pairs_match_wnstats(wordnet) -> None:  # type: ignore[no-untyped-def]
     strings = {pos: len(set(wordnet.all_lemma_names(pos))) for pos in UNIQUE_STRINGS}
     assert strings == UNIQUE_STRINGS

@@ -7,6 +7,7 @@ import json
 from pathlib import Path
 
 from service.cli.wordnet import add_wordnet_parser
+from service.config import Settings
 from service.inventory.document import parse_inventory_document, validate_inventory_document
 from service.wordnet.inventory import build_wordnet_inventory, mentions_lemma, term_spec
 from service.wordnet.senses import senses_of
@@ -74,7 +75,7 @@ def test_cli_writes_an_inventory_file(tmp_path: Path, wordnet) -> None:  # type:
         ["wordnet", "wn-demo", "--lemma", "bass", "--lemmas-from", str(lemma_file),
          "--pos", "n", "-o", str(output)]
     )
-    assert args.func(args) == 0
+    assert args.func(args, Settings(cache_dir=tmp_path / "cache")) == 0
     document = json.loads(output.read_text(encoding="utf-8"))
     spec = parse_inventory_document(document)
     assert [t.term for t in spec.terms] == ["bass", "mouse", "sea bass"]

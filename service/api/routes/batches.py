@@ -31,7 +31,6 @@ from service.store.clock import as_utc, database_now
 from service.store.models import BATCH_STATES, Batch
 
 router = APIRouter(prefix="/v1", tags=["batches"])
-queue_metrics.install()
 
 PAGE_DEFAULT = 100
 PAGE_MAX = 1000

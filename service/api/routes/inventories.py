@@ -14,7 +14,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.api.bodies import decode_json_object, decode_utf8
-from service.api.deps import Caller, admin_key, any_key, get_session
+from service.api.deps import Caller, admin_key, any_key, get_session, get_settings_dep
 from service.api.problems import ProblemError
 from service.api.schemas import (
     ExampleIn,
@@ -27,6 +27,7 @@ from service.api.schemas import (
     TermPatch,
     VersionInfo,
 )
+from service.config import Settings
 from service.inventory.csv_format import read_inventory_csv, write_inventory_csv
 from service.inventory.document import inventory_schema
 from service.store import inventories as repo
@@ -103,9 +104,13 @@ async def create_inventory(
     name: str | None = None,
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
+    settings: Settings = Depends(get_settings_dep),
 ) -> InventorySummary:
     document = await _read_document(request, name)
-    inventory = repo.create_inventory(session, caller.team_id, document, key_id=caller.key_id)
+    inventory = repo.create_inventory(
+        session, caller.team_id, document, defaults=settings.inventory_defaults(),
+        key_id=caller.key_id,
+    )
     summary = _summary(session, inventory)
     session.commit()
     response.headers["Location"] = f"/v1/inventories/{inventory.name}"

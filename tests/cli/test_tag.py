@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 
 from service.cli import tag
-from service.config import get_settings
+from service.config import Settings
 
 INVENTORY = {
     "format": "whichsense.inventory/1",
@@ -32,16 +32,15 @@ INVENTORY = {
 
 
 @pytest.fixture
-def workdir(tmp_path: Path, monkeypatch, encoder) -> Path:
-    """An inventory file, and the session's encoder instead of a fresh one per run."""
+def workdir(tmp_path: Path, encoder) -> Path:
+    """An inventory file; `encoder` loads the session's one model before the first run."""
     (tmp_path / "inventory.json").write_text(json.dumps(INVENTORY), encoding="utf-8")
-    monkeypatch.setattr("service.engine.encoder.ContextEncoder", lambda *a, **k: encoder)
-    get_settings.cache_clear()
-    yield tmp_path
-    get_settings.cache_clear()
+    return tmp_path
 
 
-def run_tag(workdir: Path, lines: list[bytes], *extra: str) -> tuple[int, Path]:
+def run_tag(
+    workdir: Path, lines: list[bytes], *extra: str, settings: Settings | None = None
+) -> tuple[int, Path]:
     docs = workdir / "docs.jsonl"
     docs.write_bytes(b"\n".join(lines) + b"\n")
     out = workdir / "results.jsonl"
@@ -52,7 +51,8 @@ def run_tag(workdir: Path, lines: list[bytes], *extra: str) -> tuple[int, Path]:
         ["tag", str(docs), "--inventory", str(workdir / "inventory.json"), "-o", str(out),
          "--no-progress", *extra]
     )
-    return args.func(args), out
+    chosen = settings or Settings(cache_dir=workdir / "cache")
+    return args.func(args, chosen), out
 
 
 def line(obj) -> bytes:
@@ -104,11 +104,10 @@ def test_skip_reports_bad_lines_and_keeps_the_rest(workdir, capsys):
     assert "3 lines skipped" in err
 
 
-def test_document_over_the_size_limit_is_reported_by_line(workdir, capsys, monkeypatch):
-    monkeypatch.setenv("WHICHSENSE_MAX_DOCUMENT_BYTES", "100")
-    get_settings.cache_clear()
+def test_document_over_the_size_limit_is_reported_by_line(workdir, capsys):
     big = line({"id": "big", "text": "bass " * 50})
-    code, _ = run_tag(workdir, [GOOD[0], big])
+    small = Settings(cache_dir=workdir / "cache", max_document_bytes=100)
+    code, _ = run_tag(workdir, [GOOD[0], big], settings=small)
     assert code == 1
     assert "docs.jsonl:2: document 'big' has 250 characters" in capsys.readouterr().err
 

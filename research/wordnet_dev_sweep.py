@@ -5,7 +5,7 @@ held-out documents become the test file and the rest the training file, and
 the benchmark runs once per (layers, gloss template), printing F1 of every
 recipe variant on the same vectors. SemEval-2013 is never read here.
 
-    .venv/bin/python scripts/wordnet_dev_sweep.py --layers 6 3,4,5,6 \
+    .venv/bin/python -m research.wordnet_dev_sweep --layers 6 3,4,5,6 \
         --templates definition definition+examples
 
 Encodings are cached ($WHICHSENSE_CACHE_DIR or ~/.cache/whichsense), so a
@@ -21,18 +21,17 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-
+from research.files import file_digest
+from service.config import Settings, load_settings, resolve_model_dir
 from service.evaluation.benchmark import BenchmarkConfig, run_benchmark
-from service.evaluation.encoding_cache import cache_root, file_digest
 from service.evaluation.splits import is_held_out
 
 DEFAULT_SEMCOR = Path(__file__).resolve().parents[2] / "shared" / "data" / "semcor30.jsonl.gz"
 
 
-def split_files(semcor: Path, share: float) -> tuple[Path, Path]:
+def split_files(settings: Settings, semcor: Path, share: float) -> tuple[Path, Path]:
     """Write (training, development) files of SemCor split by document; reused if present."""
-    folder = cache_root() / "dev-split" / f"{file_digest(semcor)[:16]}-{share}"
+    folder = settings.cache_dir / "dev-split" / f"{file_digest(semcor)[:16]}-{share}"
     train, dev = folder / "train.jsonl.gz", folder / "dev.jsonl.gz"
     if train.is_file() and dev.is_file():
         return train, dev
@@ -59,16 +58,16 @@ def main() -> int:
     parser.add_argument("--json", type=Path, help="also write every result here")
     args = parser.parse_args()
 
-    from service.config import get_settings, resolve_model_dir
     from service.engine import ContextEncoder
     from service.engine.lexicon import open_wordnet
 
-    train, dev = split_files(args.semcor, args.share)
-    reader = open_wordnet()
+    settings = load_settings()
+    train, dev = split_files(settings, args.semcor, args.share)
+    reader = open_wordnet(cache_dir=settings.cache_dir)
     results = []
     for layer_text in args.layers:
         layers = tuple(int(x) for x in layer_text.split(","))
-        encoder = ContextEncoder(resolve_model_dir(get_settings()), layers=layers, batch_size=64)
+        encoder = ContextEncoder(resolve_model_dir(settings), layers=layers, batch_size=64)
         for template in args.templates:
             # The training file is what the split left: hold out again with another salt.
             config = replace(BenchmarkConfig(), layers=layers, gloss_template=template,
@@ -79,7 +78,7 @@ def main() -> int:
             extra |= {f"prior weight {b}": replace(base, prior_weight=b)
                       for b in args.prior_weights}
             result = run_benchmark(train, dev, config, reader=reader, encoder=encoder,
-                                   extra_recipes=extra,
+                                   extra_recipes=extra, cache_dir=settings.cache_dir,
                                    log=lambda m: print(m, file=sys.stderr, flush=True))
             results.append(result)
             print(f"layers {layer_text:8} template {template:30} F1 {result['f1']:6.2f} "

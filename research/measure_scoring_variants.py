@@ -4,14 +4,14 @@ Two development sets, both encoded once and cached (only the scoring varies):
 
 - demo: the demo's evidence half only (the held-out half is never read), split
   again by document with several salts; one part is evidence, the other scored.
-- semcor: the SemCor development slice of scripts/measure_engine.py (run its
+- semcor: the SemCor development slice of research/measure_engine.py (run its
   `encode` first; the cache is read from --semcor-cache).
 
 Prints accuracy without and with the sense prior (with the prior, T is fitted on
 the scored rows themselves, so that column is optimistic; it only says whether
 the prior can help at all).
 
-    .venv/bin/python scripts/measure_scoring_variants.py
+    .venv/bin/python -m research.measure_scoring_variants
 """
 
 from __future__ import annotations
@@ -21,7 +21,6 @@ import hashlib
 import json
 import os
 import pickle
-import sys
 from collections import defaultdict
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -29,12 +28,10 @@ from pathlib import Path
 
 import numpy as np
 
-os.environ.setdefault("HF_HUB_OFFLINE", "1")
-ROOT = Path(__file__).resolve().parent.parent
-sys.path.insert(0, str(ROOT))
-sys.path.insert(0, str(ROOT / "scripts"))
+from service.engine import fit_temperature, share_within_documents
 
-from service.engine import fit_temperature, share_within_documents  # noqa: E402
+os.environ.setdefault("HF_HUB_OFFLINE", "1")  # before the encoder loads transformers
+ROOT = Path(__file__).resolve().parent.parent
 
 DEMO_SALTS = ("inner:", "inner-1:", "inner-2:", "inner-3:", "inner-4:")
 
@@ -232,7 +229,7 @@ def demo_splits(terms, labels):
 
 
 def semcor_data(cache: Path):
-    import measure_engine as me
+    from research import measure_engine as me
 
     setup = me.Setup(cache)
     layers = (6,)

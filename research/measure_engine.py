@@ -6,11 +6,11 @@ sentences from the other SemCor documents that contain the dev lemmas
 WordNet 3.0 senses of each lemma+pos. Encodings are cached under --cache so a
 rerun of the report costs nothing.
 
-    .venv/bin/python scripts/measure_engine.py encode     # slow: runs the encoder
-    .venv/bin/python scripts/measure_engine.py report     # layer, gloss, prior, T, ...
-    .venv/bin/python scripts/measure_engine.py rationale  # attention vs erasure agreement
-    .venv/bin/python scripts/measure_engine.py speed      # tokens/s of encode_spans and tag()
-    .venv/bin/python scripts/measure_engine.py semeval    # the few final checks on SemEval-2013
+    .venv/bin/python -m research.measure_engine encode     # slow: runs the encoder
+    .venv/bin/python -m research.measure_engine report     # layer, gloss, prior, T, ...
+    .venv/bin/python -m research.measure_engine rationale  # attention vs erasure agreement
+    .venv/bin/python -m research.measure_engine speed      # tokens/s of encode_spans and tag()
+    .venv/bin/python -m research.measure_engine semeval    # the few final checks on SemEval-2013
 """
 
 from __future__ import annotations
@@ -20,7 +20,6 @@ import gzip
 import hashlib
 import json
 import random
-import sys
 import time
 from collections import Counter, defaultdict
 from dataclasses import dataclass
@@ -28,10 +27,8 @@ from pathlib import Path
 
 import numpy as np
 
-ROOT = Path(__file__).resolve().parent.parent
-sys.path.insert(0, str(ROOT))
-
-from service.engine import (  # noqa: E402
+from research.layers import encode_spans_by_layer, encode_texts_by_layer
+from service.engine import (
     ContextEncoder,
     Disambiguator,
     Document,
@@ -49,14 +46,15 @@ from service.engine import (  # noqa: E402
     open_wordnet,
     share_within_documents,
 )
-from service.engine.prototypes import DEFAULT_PRIOR_SMOOTHING  # noqa: E402
-from service.engine.rationale import (  # noqa: E402
+from service.engine.prototypes import DEFAULT_PRIOR_SMOOTHING
+from service.engine.rationale import (
     attention_words,
     erasure_drops,
     rollout_words,
     top_word_agreement,
 )
 
+ROOT = Path(__file__).resolve().parent.parent
 DATA = ROOT.parent / "shared" / "data"
 DEV_DOCS = ("semcor3.0/brown1/br-a02", "semcor3.0/brown1/br-e02", "semcor3.0/brown2/br-f13")
 MAX_TRAIN_SENTENCES_PER_LEMMA = 12
@@ -195,8 +193,8 @@ def encode_all(cache: Path) -> None:
     print(f"dev instances {len(dev)}, evidence {len(evidence)}, terms {len(terms)}")
     started = time.time()
     encoder.tokens_encoded = 0
-    dev_vectors = encoder.encode_spans_by_layer([(i.text, i.start, i.end) for i in dev])
-    evidence_vectors = encoder.encode_spans_by_layer([(i.text, i.start, i.end) for i in evidence])
+    dev_vectors = encode_spans_by_layer(encoder, [(i.text, i.start, i.end) for i in dev])
+    evidence_vectors = encode_spans_by_layer(encoder, [(i.text, i.start, i.end) for i in evidence])
     took = time.time() - started
     print(f"spans: {encoder.tokens_encoded} tokens in {took:.1f}s")
     example_rows, example_spans = [], []
@@ -209,7 +207,7 @@ def encode_all(cache: Path) -> None:
                 if found:
                     example_rows.append((spec.term, sense.sense_id))
                     example_spans.append((example, found[0][0], found[0][1]))
-    example_vectors = encoder.encode_spans_by_layer(example_spans)
+    example_vectors = encode_spans_by_layer(encoder, example_spans)
     arrays = {
         "dev": dev_vectors.astype(np.float16),
         "evidence": evidence_vectors.astype(np.float16),
@@ -220,10 +218,10 @@ def encode_all(cache: Path) -> None:
             template.format(term=t.split("#")[0], gloss=g, examples="; ".join(e)).strip("; ")
             for t, _, g, e in gloss_rows
         ]
-        arrays[f"gloss::{name}"] = encoder.encode_texts(texts, by_layer=True).astype(np.float16)
+        arrays[f"gloss::{name}"] = encode_texts_by_layer(encoder, texts).astype(np.float16)
     # The term's own tokens inside "term: gloss" (contextual reading of the definition).
     spans = [(f"{t.split('#')[0]}: {g}", 0, len(t.split("#")[0])) for t, _, g, _ in gloss_rows]
-    arrays["gloss::term-tokens"] = encoder.encode_spans_by_layer(spans).astype(np.float16)
+    arrays["gloss::term-tokens"] = encode_spans_by_layer(encoder, spans).astype(np.float16)
     cache.mkdir(parents=True, exist_ok=True)
     np.savez_compressed(cache / "vectors.npz", **arrays)
     meta = {
