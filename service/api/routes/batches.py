@@ -237,6 +237,13 @@ def _tags(session: Session, batch: Batch) -> dict[str, list[str]]:
     return batch_results.sense_tags(version_document(session, inventory, batch.inventory_version))
 
 
+INCLUDE_DOUBTFUL = Query(
+    default=False,
+    description="Also list senses found only in occurrences sent to review, marked `doubtful` "
+    "and kept out of `sense_ids` and `tags` (they go to `doubtful_sense_ids`, `doubtful_tags`)",
+)
+
+
 @router.get(
     "/batches/{batch_id}/summaries",
     summary="Per-document summaries (senses found per term, counts, best confidence)",
@@ -246,6 +253,7 @@ def list_summaries(
     request: Request,
     limit: int = Query(default=PAGE_DEFAULT, ge=1, le=PAGE_MAX),
     cursor: str | None = None,
+    include_doubtful: bool = INCLUDE_DOUBTFUL,
     session: Session = Depends(get_session),
     _caller: Any = Depends(any_key),
 ) -> Response:
@@ -256,7 +264,10 @@ def list_summaries(
 
     def page(s: Session, position: Any, size: int = STREAM_PAGE) -> tuple[list[Any], Any]:
         documents, following = batch_results.documents_page(s, batch_id, after=position, limit=size)
-        return batch_results.summaries(s, batch, documents, tags), following
+        summaries = batch_results.summaries(
+            s, batch, documents, tags, include_doubtful=include_doubtful
+        )
+        return summaries, following
 
     if _wants_ndjson(request):
         session.rollback()
@@ -277,12 +288,16 @@ def list_summaries(
 def document_summary(
     batch_id: str,
     document_id: str,
+    include_doubtful: bool = INCLUDE_DOUBTFUL,
     session: Session = Depends(get_session),
     _caller: Any = Depends(any_key),
 ) -> dict[str, Any]:
     batch = batches.get_batch(session, batch_id)
     document = batch_results.find_document(session, batch_id, document_id)
-    return batch_results.summaries(session, batch, [document], _tags(session, batch))[0]
+    tags = _tags(session, batch)
+    return batch_results.summaries(
+        session, batch, [document], tags, include_doubtful=include_doubtful
+    )[0]
 
 
 @router.get("/batches/{batch_id}/failures", summary="Documents that failed, with their error")
