@@ -59,18 +59,16 @@ def test_docs_render_every_operation_offline(live_url: str, tmp_path: Path) -> N
 
     spec = httpx.get(f"{live_url}/openapi.json").json()
     assert spec["openapi"].startswith("3.1")
-    operations = [
-        (method.upper(), path) for path, item in spec["paths"].items() for method in item
-    ]
+    operations = [(method.upper(), path) for path, item in spec["paths"].items() for method in item]
     outside: list[str] = []
     with sync_playwright() as driver:
         browser = driver.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
         page = browser.new_page(viewport={"width": 1280, "height": 900})
         page.on(
             "request",
-            lambda request: None
-            if request.url.startswith((live_url, "data:"))
-            else outside.append(request.url),
+            lambda request: (
+                None if request.url.startswith((live_url, "data:")) else outside.append(request.url)
+            ),
         )
         page.goto(f"{live_url}/docs")
         page.wait_for_selector(".opblock", timeout=30_000)
