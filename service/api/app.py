@@ -23,7 +23,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service import __version__
 from service.api import metrics
 from service.api.problems import install_problem_handlers, problem_response
-from service.api.routes import batches, disambiguate, evidence, health, inventories
+from service.api.routes import batches, disambiguate, evidence, health, home, inventories
 from service.config import Settings, get_settings
 from service.inventory.document import inventory_schema
 from service.store.database import require_migrated, session_factory
@@ -127,6 +127,7 @@ def create_app(settings: Settings | None = None, *, check_migrated: bool = True)
     install_problem_handlers(app)
     app.add_middleware(BodyLimit, limit=settings.max_request_bytes)
     app.add_middleware(metrics.RequestMetrics)
+    app.include_router(home.router)
     app.include_router(health.router)
     app.include_router(metrics.router)
     app.include_router(inventories.router)

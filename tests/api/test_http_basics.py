@@ -144,3 +144,28 @@ def test_every_time_in_an_answer_is_rfc_3339_utc_with_z(client, api_keys, invent
     assert len(times) >= 4
     for value in times:
         assert re.fullmatch(RFC_3339_UTC, value), value
+
+
+def test_root_is_a_landing_page_linking_the_docs_and_the_review_queue(client):
+    from html.parser import HTMLParser
+
+    class Links(HTMLParser):
+        def __init__(self) -> None:
+            super().__init__()
+            self.hrefs: list[str] = []
+            self.lang = ""
+
+        def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+            if tag == "a":
+                self.hrefs.append(dict(attrs).get("href") or "")
+            if tag == "html":
+                self.lang = dict(attrs).get("lang") or ""
+
+    page = client.get("/")
+    assert page.status_code == 200 and page.headers["content-type"].startswith("text/html")
+    links = Links()
+    links.feed(page.text)
+    assert {"/docs", "/review", "/openapi.json"} <= set(links.hrefs)
+    assert links.lang == "en" and "<title>whichsense</title>" in page.text
+    assert "http://" not in page.text and "https://" not in page.text  # nothing from outside
+    assert client.get("/docs").status_code == 200
