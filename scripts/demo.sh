@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # Set up, then run the main job on the embedded default: a fresh SQLite database, the demo
 # inventory and corpus submitted as a batch through the HTTP API to the in-process worker.
-# Leaves the API serving on http://127.0.0.1:8000 (Ctrl-C stops it).
+# Installs only what the main job needs (scripts/test.sh adds the test extras).
+# Leaves the API serving on http://$WHICHSENSE_HOST:$WHICHSENSE_PORT (127.0.0.1:8000; Ctrl-C stops it).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 scripts/install.sh

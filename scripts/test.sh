@@ -2,7 +2,7 @@
 # Install what is needed, make sure PostgreSQL is up, then run the whole test suite.
 set -euo pipefail
 cd "$(dirname "$0")/.."
-scripts/install.sh
+scripts/install.sh --test
 
 if ! pg_isready -q -h 127.0.0.1 -p 5432 2>/dev/null; then
   echo "starting PostgreSQL"

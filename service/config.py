@@ -30,6 +30,14 @@ class Settings(BaseSettings):
         default="sqlite:///./whichsense.db",
         description="SQLAlchemy URL: SQLite file (embedded) or postgresql+psycopg://...",
     )
+    host: str = Field(
+        default="127.0.0.1",
+        min_length=1,
+        description="Address `whichsense serve` and `demo` listen on (0.0.0.0: every interface).",
+    )
+    port: int = Field(
+        default=8000, ge=1, le=65535, description="TCP port of `whichsense serve` and `demo`."
+    )
     model_dir: Path | None = Field(
         default=None,
         description="sentence-transformers model directory; empty means the bundled MiniLM.",

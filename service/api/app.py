@@ -9,9 +9,9 @@ from __future__ import annotations
 import json
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from importlib.resources import files
 from typing import Any
 
-import swagger_ui_bundle
 from fastapi import FastAPI
 from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.openapi.utils import get_openapi
@@ -23,7 +23,15 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service import __version__
 from service.api import metrics, queue_metrics
 from service.api.problems import install_problem_handlers, problem_response
-from service.api.routes import audit, batches, disambiguate, evidence, health, inventories
+from service.api.routes import (
+    audit,
+    batches,
+    disambiguate,
+    evidence,
+    health,
+    home,
+    inventories,
+)
 from service.config import Settings
 from service.inventory.document import inventory_schema
 from service.store.database import require_migrated, session_factory
@@ -127,6 +135,7 @@ def create_app(settings: Settings, *, check_migrated: bool = True) -> FastAPI:
     install_problem_handlers(app)
     app.add_middleware(BodyLimit, limit=settings.max_request_bytes)
     app.add_middleware(metrics.RequestMetrics)
+    app.include_router(home.router)
     app.include_router(health.router)
     app.include_router(metrics.router)
     app.include_router(inventories.router)
@@ -138,13 +147,13 @@ def create_app(settings: Settings, *, check_migrated: bool = True) -> FastAPI:
     return app
 
 
+DOCS_ASSETS = files("fastapi_offline") / "static"
+"""Swagger UI 5 (reads OpenAPI 3.1) as shipped inside the fastapi-offline wheel."""
+
+
 def _mount_docs(app: FastAPI) -> None:
-    """Swagger UI from the installed bundle: no CDN, works air-gapped."""
-    app.mount(
-        "/docs/assets",
-        StaticFiles(directory=swagger_ui_bundle.swagger_ui_path),
-        name="docs-assets",
-    )
+    """Interactive docs from locally installed assets: no CDN, works air-gapped."""
+    app.mount("/docs/assets", StaticFiles(directory=str(DOCS_ASSETS)), name="docs-assets")
 
     @app.get("/docs", include_in_schema=False)
     def docs() -> HTMLResponse:
@@ -153,7 +162,7 @@ def _mount_docs(app: FastAPI) -> None:
             title="whichsense API",
             swagger_js_url="/docs/assets/swagger-ui-bundle.js",
             swagger_css_url="/docs/assets/swagger-ui.css",
-            swagger_favicon_url="/docs/assets/favicon-32x32.png",
+            swagger_favicon_url="/docs/assets/favicon.png",
         )
 
     def openapi() -> dict[str, Any]:

@@ -55,7 +55,12 @@ def require_scope(needed: Scope | None) -> Callable[..., Caller]:
             )
         key = authenticate(session, token.strip())
         if key is None:
-            raise ProblemError(401, "the API key is unknown or revoked", headers=_CHALLENGE)
+            raise ProblemError(
+                401,
+                "no live key matches the one sent (mistyped, cut short or revoked?)",
+                kind="unknown-api-key",
+                headers=_CHALLENGE,
+            )
         if needed is not None and not grants(key.scope, needed):
             raise ProblemError(
                 403, f"this route needs scope '{needed}'; the key has scope '{key.scope}'"

@@ -39,6 +39,10 @@ _TITLES = {
     500: ("internal", "Internal server error"),
     503: ("unavailable", "The service is not ready"),
 }
+_KIND_TITLES = {
+    "unknown-api-key": "Unknown or revoked API key",
+}
+"""Titles of problem kinds that share a status with another kind."""
 
 
 # The batch wing says why it refuses; the API owns what status that is.
@@ -83,7 +87,9 @@ def problem_response(
     slug, title = _TITLES.get(status, ("error", "Error"))
     body: dict[str, Any] = {
         "type": TYPE_BASE + (kind or slug),
-        "title": title if kind is None else kind.replace("-", " ").capitalize(),
+        "title": title
+        if kind is None
+        else _KIND_TITLES.get(kind, kind.replace("-", " ").capitalize()),
         "status": status,
         "detail": detail,
     }

@@ -3,11 +3,15 @@
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Literal
+from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, PlainSerializer
 
 from service.engine.types import ABSTAIN_THRESHOLD_BOUNDS, REVIEW_THRESHOLD_BOUNDS
+from service.store.clock import rfc3339
+
+Timestamp = Annotated[datetime, PlainSerializer(rfc3339, return_type=str)]
+"""A time in an answer: RFC 3339, UTC, with a `Z`."""
 
 
 class Strict(BaseModel):
@@ -69,12 +73,12 @@ class InventorySummary(BaseModel):
     terms: int
     senses: int
     settings: dict[str, float | None]
-    updated_at: datetime
+    updated_at: Timestamp
 
 
 class VersionInfo(BaseModel):
     version: int
-    created_at: datetime
+    created_at: Timestamp
 
 
 class ExampleOut(BaseModel):

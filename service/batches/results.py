@@ -109,6 +109,8 @@ def summaries(
     batch: Batch,
     documents: Sequence[BatchDocument],
     tags: Mapping[str, Sequence[str]],
+    *,
+    include_doubtful: bool = False,
 ) -> list[dict[str, Any]]:
     """The summary of each document (see `service.batches.summaries`), in the given order."""
     if not documents:
@@ -144,7 +146,7 @@ def summaries(
             "error": d.error,
             "metadata": d.document_metadata,
             "inventory": {"name": batch.inventory_name, "version": batch.inventory_version},
-            **summarise(tallies.get(d.document_id, ()), tags),
+            **summarise(tallies.get(d.document_id, ()), tags, include_doubtful=include_doubtful),
         }
         for d in documents
     ]

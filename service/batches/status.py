@@ -10,7 +10,7 @@ from dataclasses import asdict, dataclass
 from datetime import datetime
 from typing import Any
 
-from service.store.clock import as_utc_or_none
+from service.store.clock import as_utc_or_none, rfc3339
 from service.store.models import Batch, WebhookAttempt
 
 
@@ -38,8 +38,7 @@ class BatchCounts:
 
 
 def _time(value: datetime | None) -> str | None:
-    moment = as_utc_or_none(value)
-    return moment.isoformat().replace("+00:00", "Z") if moment is not None else None
+    return rfc3339(value) if value is not None else None
 
 
 def batch_links(root: str) -> dict[str, str]:

@@ -71,10 +71,33 @@ def without_labeled_items(
     return kept
 
 
+def threshold_warning(summary: dict) -> str | None:
+    """A warning when the proposed review threshold rests on too few items, else None."""
+    support = summary.get("threshold_support")
+    if not support or support["enough"]:
+        return None
+    low, high = support["accuracy_interval_95"]
+    return (
+        f"warning: that threshold rests on only {support['items']} items (95% interval of "
+        f"their accuracy {low:.2f}-{high:.2f}); label at least {support['minimum_items']} "
+        "before relying on it"
+    )
+
+
+def model_name(model_dir: Path) -> str:
+    """The title of the model card (`# name` in README.md), else the folder's name."""
+    card = model_dir / "README.md"
+    if card.is_file():
+        for line in card.read_text(encoding="utf-8", errors="replace").splitlines():
+            if line.startswith("# ") and line[2:].strip():
+                return line[2:].strip()
+    return model_dir.name
+
+
 def run(args: argparse.Namespace, settings: Settings) -> int:
     from service.engine import SpanQuery
     from service.evaluation.labeled import read_labeled
-    from service.evaluation.report import Outcome, summarise, write_report
+    from service.evaluation.report import Outcome, describe_model, summarise, write_report
     from service.tagging.engines import build_disambiguator
 
     started = time.perf_counter()
@@ -114,6 +137,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         "inventory_source": source,
         "evidence_items": len(evidence),
         "model_id": encoder.model_id,
+        "model": describe_model(encoder.model_id, model_name(encoder.model_path)),
         "skipped": dict(skipped),
         "seconds": round(time.perf_counter() - started, 2),
     }
@@ -124,6 +148,9 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     if chosen:
         print(f"review threshold {chosen['threshold']:.3f} reaches {args.target_accuracy:.0%}: "
               f"{chosen['coverage']:.1%} assigned automatically")
+        warning = threshold_warning(summary)
+        if warning:
+            print(warning, file=sys.stderr)
     else:
         print(f"no review threshold reaches {args.target_accuracy:.0%} accuracy")
     print(f"wrote {summary_path} and {html_path}")

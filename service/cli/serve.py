@@ -11,8 +11,8 @@ if TYPE_CHECKING:
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
     parser = commands.add_parser("serve", help="run the HTTP API")
-    parser.add_argument("--host", default="127.0.0.1")
-    parser.add_argument("--port", type=int, default=8000)
+    parser.add_argument("--host", help="listen address (default: WHICHSENSE_HOST, 127.0.0.1)")
+    parser.add_argument("--port", type=int, help="TCP port (default: WHICHSENSE_PORT, 8000)")
     parser.add_argument(
         "--no-worker",
         action="store_true",
@@ -32,5 +32,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     app = create_app(settings)
     if not args.no_worker:
         attach(app, settings)
-    uvicorn.run(app, host=args.host, port=args.port, log_level="info")
+    host = args.host if args.host is not None else settings.host
+    port = args.port if args.port is not None else settings.port
+    uvicorn.run(app, host=host, port=port, log_level="info")
     return 0

@@ -39,6 +39,9 @@ from service.evaluation.scoring import score
 
 MAX_CURVE_POINTS = 200
 MAX_ERRORS_SHOWN = 100
+MIN_THRESHOLD_ITEMS = 100
+"""Fewest items above a proposed review threshold before it is offered without a warning: at
+90% accuracy, 100 items leave a 95% Wilson interval of 0.83-0.95; 26 items (23 right) 0.71-0.96."""
 
 
 @dataclass(frozen=True)
@@ -61,11 +64,44 @@ class Outcome:
         return self.best == self.gold
 
 
+def describe_model(model_id: str, name: str) -> str:
+    """A reader's line for the encoder behind a run: its name, the layer pooled and the
+    context window, read from the engine's model id (`<dir>:<digest>:L<layers>:w<max>-<min>`)."""
+    parts = model_id.split(":")
+    layers = next((p[1:] for p in parts if p.startswith("L")), None)
+    window = next((p[1:].split("-")[0] for p in parts if p.startswith("w")), None)
+    words = [name]
+    if layers:
+        words.append(f"layer {layers.replace('-', ' + ')} pooled")
+    if window:
+        words.append(f"windows of up to {window} sub-words")
+    if len(parts) > 1:
+        words.append(f"weights fingerprint {parts[1]}")
+    return ", ".join(words)
+
+
 def _thin(points: Sequence[CoveragePoint], limit: int = MAX_CURVE_POINTS) -> list[CoveragePoint]:
     if len(points) <= limit:
         return list(points)
     picks = np.unique(np.linspace(0, len(points) - 1, limit).round().astype(int))
     return [points[i] for i in picks]
+
+
+def threshold_support(point: CoveragePoint | None) -> dict[str, Any] | None:
+    """How much the proposed threshold rests on: the items above it and the 95% Wilson
+    interval (scipy's binomtest) of their accuracy; `enough` is false under the minimum."""
+    if point is None:
+        return None
+    from scipy.stats import binomtest
+
+    right = round(point.accuracy * point.assigned)
+    interval = binomtest(right, point.assigned).proportion_ci(0.95, method="wilson")
+    return {
+        "items": point.assigned,
+        "accuracy_interval_95": [round(interval.low, 6), round(interval.high, 6)],
+        "minimum_items": MIN_THRESHOLD_ITEMS,
+        "enough": point.assigned >= MIN_THRESHOLD_ITEMS,
+    }
 
 
 def _point_json(point: CoveragePoint | None) -> dict[str, float] | None:
@@ -129,6 +165,7 @@ def summarise(
         ],
         "target_accuracy": target_accuracy,
         "threshold_for_target": _point_json(chosen),
+        "threshold_support": threshold_support(chosen),
         "coverage_curve": [_point_json(p) for p in _thin(curve)],
         "terms": [
             term_summary(term, senses_of_term.get(term, ()), items)

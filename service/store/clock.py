@@ -34,3 +34,9 @@ def as_utc(value: datetime) -> datetime:
 
 def as_utc_or_none(value: datetime | None) -> datetime | None:
     return None if value is None else as_utc(value)
+
+
+def rfc3339(value: datetime) -> str:
+    """`value` as RFC 3339 in UTC with a `Z`, the one form every answer uses for times
+    (SQLite's naive values and PostgreSQL's aware ones would otherwise print differently)."""
+    return as_utc(value).isoformat().replace("+00:00", "Z")

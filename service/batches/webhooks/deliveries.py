@@ -22,6 +22,7 @@ class DueWebhook:
     batch_id: str
     url: str
     attempt: int
+    key_id: str
     signing_secret: str
     body: dict[str, Any]
 
@@ -49,6 +50,7 @@ def claim_due_webhook(session: Session, claim_seconds: float) -> DueWebhook | No
         batch_id=batch.id,
         url=batch.callback_url or "",
         attempt=batch.webhook_attempts,
+        key_id=batch.submitted_by,
         signing_secret=secret or "",
         body=body,
     )

@@ -17,7 +17,7 @@ import httpx
 
 from service import __version__
 from service.batches.webhooks.deliveries import DueWebhook
-from service.batches.webhooks.signatures import SIGNATURE_HEADER, sign
+from service.batches.webhooks.signatures import signature_headers
 from service.batches.webhooks.urls import WebhookUrlRefused, check_url
 
 
@@ -83,7 +83,13 @@ def deliver(
         "Whichsense-Event": "batch.finished",
         "Whichsense-Batch": due.batch_id,
         "Whichsense-Attempt": str(due.attempt),
-        SIGNATURE_HEADER: sign(due.signing_secret, int(time.time()), body),
+        **signature_headers(
+            secret=due.signing_secret,
+            key_id=due.key_id,
+            url=due.url,
+            body=body,
+            created=int(time.time()),
+        ),
     }
     extensions = {"sni_hostname": checked.host} if url.scheme == "https" else {}
     owned = client is None

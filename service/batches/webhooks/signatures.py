@@ -1,36 +1,52 @@
-"""Webhook signatures: `Whichsense-Signature: t=<unix seconds>,v1=<hex>`.
+"""Webhook signatures: IETF HTTP Message Signatures (RFC 9421) with a Content-Digest (RFC 9530).
 
-v1 is HMAC-SHA256, keyed with the submitting API key's signing secret, over
-`<t>.<raw body>`. Signing the timestamp lets a receiver refuse replays older
-than its tolerance; the scheme tag lets a future scheme be added alongside.
+Each notice carries `Content-Digest: sha-256=:<base64>:` and a signature, labelled
+`whichsense`, over `@method`, `@target-uri` and `content-digest`, with `created`,
+`keyid` (the submitting API key's id), `alg="hmac-sha256"` and `tag`. The key is
+that API key's signing secret (its UTF-8 bytes), RFC 9421's HMAC-SHA256
+algorithm. Any RFC 9421 implementation verifies it; a receiver refuses stale
+`created` times to resist replays. Signing is done by the `http-message-signatures`
+library, so the signature base is built by a maintained implementation of the RFC.
 """
 
 from __future__ import annotations
 
-import hashlib
-import hmac
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
 
-SIGNATURE_HEADER = "Whichsense-Signature"
+from http_message_signatures import HTTPMessageSigner, MappingKeyResolver
+from http_message_signatures.algorithms import HMAC_SHA256
 
-
-def sign(secret: str, timestamp: int, body: bytes) -> str:
-    """The header value for `body` sent at `timestamp`."""
-    message = str(timestamp).encode("ascii") + b"." + body
-    digest = hmac.new(secret.encode("utf-8"), message, hashlib.sha256).hexdigest()
-    return f"t={timestamp},v1={digest}"
+LABEL = "whichsense"
+TAG = "whichsense-webhook"
+COVERED_COMPONENTS = ("@method", "@target-uri", "content-digest")
 
 
-def verify(secret: str, header: str, body: bytes, *, now: int, tolerance: int = 300) -> bool:
-    """Whether `header` signs `body` with `secret` and its time is within `tolerance` of `now`."""
-    values: dict[str, list[str]] = {}
-    for item in header.split(","):
-        key, _, value = item.strip().partition("=")
-        values.setdefault(key, []).append(value)
-    try:
-        timestamp = int(values["t"][0])
-    except (KeyError, ValueError):
-        return False
-    if abs(now - timestamp) > tolerance:
-        return False
-    expected = sign(secret, timestamp, body).split("v1=", 1)[1]
-    return any(hmac.compare_digest(expected, given) for given in values.get("v1", []))
+@dataclass
+class _Outgoing:
+    """The request as the signing library sees it: method, URL, header fields."""
+
+    method: str
+    url: str
+    headers: dict[str, str] = field(default_factory=dict)
+
+
+def signature_headers(
+    *, secret: str, key_id: str, url: str, body: bytes, created: int, method: str = "POST"
+) -> dict[str, str]:
+    """`Content-Digest`, `Signature-Input` and `Signature` for `body` sent to `url` at `created`.
+
+    `url` is the callback URL as registered (the receiver's own view of its target URI).
+    """
+    message = _Outgoing(method, url)
+    keys = MappingKeyResolver(public_keys={}, private_keys={key_id: secret.encode("utf-8")})
+    HTTPMessageSigner(signature_algorithm=HMAC_SHA256, key_resolver=keys).sign(
+        message,
+        key_id=key_id,
+        created=datetime.fromtimestamp(created, UTC),
+        label=LABEL,
+        tag=TAG,
+        covered_component_ids=COVERED_COMPONENTS,
+        body=body,
+    )
+    return message.headers
