@@ -6,6 +6,7 @@ import argparse
 import sys
 import time
 from collections import Counter
+from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -103,7 +104,9 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         )
         for (item, term), result in zip(matched, results, strict=True)
     ]
-    senses = {term.term: [sense.sense_id for sense in term.senses] for term in spec.terms}
+    senses: dict[str, Sequence[str]] = {
+        term.term: [sense.sense_id for sense in term.senses] for term in spec.terms
+    }
     summary = summarise(outcomes, senses, target_accuracy=args.target_accuracy)
     meta = {
         "labeled_file": str(args.labeled),

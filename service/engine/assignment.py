@@ -46,7 +46,8 @@ def softmax(
         scaled = scaled + np.asarray(log_prior, np.float64)
     scaled -= scaled.max(axis=-1, keepdims=True)
     weights = np.exp(scaled)
-    return weights / weights.sum(axis=-1, keepdims=True)
+    probabilities: np.ndarray = weights / weights.sum(axis=-1, keepdims=True)
+    return probabilities
 
 
 @dataclass(frozen=True)
