@@ -71,6 +71,8 @@ def without_labeled_items(
 
 
 def run(args: argparse.Namespace, settings: Settings) -> int:
+    print("whichsense evaluate: loading the labeled file, inventory and model ...",
+          file=sys.stderr, flush=True)
     from service.engine import SpanQuery
     from service.evaluation.labeled import read_labeled
     from service.evaluation.report import Outcome, summarise, write_report
@@ -89,7 +91,8 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         print("whichsense: no labeled occurrence names a term of the inventory", file=sys.stderr)
         return 2
     evidence = without_labeled_items(evidence, items, skipped)
-    print(f"loading the model, scoring {len(matched)} labeled occurrences ...", file=sys.stderr)
+    print(f"whichsense evaluate: scoring {len(matched)} labeled occurrences ...", file=sys.stderr,
+          flush=True)
     disambiguator = build_disambiguator(settings, spec, evidence)
     encoder = disambiguator.encoder
     queries = [SpanQuery(item.text, item.start, item.end, term, document_id=item.occurrence_id)
