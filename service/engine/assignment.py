@@ -31,8 +31,9 @@ from .types import InventorySettings, Status
 DEFAULT_TEMPERATURE = 0.066
 # Cosine below which an occurrence is taken to carry a sense missing from the
 # inventory: the largest value that still keeps >= 95 % of SemCor dev occurrences
-# whose sense is listed (0.951 with the default scoring); the inventory default.
-RECOMMENDED_ABSTAIN_THRESHOLD = 0.25
+# whose sense is listed (0.951 with the default scoring). Owned by the inventory
+# default in types.py, which every inventory without its own value gets.
+RECOMMENDED_ABSTAIN_THRESHOLD = InventorySettings().abstain_threshold
 
 
 def softmax(
