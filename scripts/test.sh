@@ -12,4 +12,5 @@ fi
 
 export HF_HUB_OFFLINE=1 TRANSFORMERS_OFFLINE=1
 .venv/bin/ruff check .
+.venv/bin/mypy  # strict on service/engine; see [tool.mypy] in pyproject.toml
 .venv/bin/python -m pytest -q "$@"

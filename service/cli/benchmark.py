@@ -113,8 +113,8 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         if not path.is_file():
             print(f"whichsense: no such file: {path}", file=sys.stderr)
             return 2
+    print("whichsense benchmark: loading the model and WordNet ...", file=sys.stderr, flush=True)
     config = _config(args)
-    print("loading the model and WordNet ...", file=sys.stderr, flush=True)
     encoder = ContextEncoder(resolve_model_dir(settings), layers=config.layers,
                              batch_size=config.batch_size, num_threads=settings.torch_threads)
     result = run_benchmark(

@@ -28,6 +28,7 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace, settings: Settings) -> int:
+    print(f"reading the labeled evidence of '{args.name}' ...", flush=True)
     from service.engine import DEFAULT_TEMPERATURE, calibrate_book
     from service.store import inventories
     from service.store.database import session_scope
@@ -45,7 +46,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
             "add some (POST /v1/inventories/{name}/evidence or `whichsense evidence import`)"
         )
         return 2
-    print(f"loading the model, encoding {len(evidence)} labeled occurrences ...")
+    print(f"loading the model, encoding {len(evidence)} labeled occurrences ...", flush=True)
     book = build_disambiguator(settings, spec, evidence).prototypes
     current = spec.settings.temperature or DEFAULT_TEMPERATURE
     report = calibrate_book(book, current)

@@ -6,6 +6,7 @@ import argparse
 import sys
 import time
 from collections import Counter
+from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -95,6 +96,8 @@ def model_name(model_dir: Path) -> str:
 
 
 def run(args: argparse.Namespace, settings: Settings) -> int:
+    print("whichsense evaluate: loading the labeled file, inventory and model ...",
+          file=sys.stderr, flush=True)
     from service.engine import SpanQuery
     from service.evaluation.labeled import read_labeled
     from service.evaluation.report import Outcome, describe_model, summarise, write_report
@@ -113,7 +116,8 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         print("whichsense: no labeled occurrence names a term of the inventory", file=sys.stderr)
         return 2
     evidence = without_labeled_items(evidence, items, skipped)
-    print(f"loading the model, scoring {len(matched)} labeled occurrences ...", file=sys.stderr)
+    print(f"whichsense evaluate: scoring {len(matched)} labeled occurrences ...", file=sys.stderr,
+          flush=True)
     disambiguator = build_disambiguator(settings, spec, evidence)
     encoder = disambiguator.encoder
     queries = [SpanQuery(item.text, item.start, item.end, term, document_id=item.occurrence_id)
@@ -128,7 +132,9 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         )
         for (item, term), result in zip(matched, results, strict=True)
     ]
-    senses = {term.term: [sense.sense_id for sense in term.senses] for term in spec.terms}
+    senses: dict[str, Sequence[str]] = {
+        term.term: [sense.sense_id for sense in term.senses] for term in spec.terms
+    }
     summary = summarise(outcomes, senses, target_accuracy=args.target_accuracy)
     meta = {
         "labeled_file": str(args.labeled),

@@ -66,23 +66,36 @@ def main(argv: Sequence[str] | None = None, *, settings: Settings | None = None)
             logging.getLogger(chatty).setLevel(logging.WARNING)
 
     from service.config import load_settings
-    from service.inventory.document import InventoryInvalid
-    from service.store.database import DatabaseNotMigrated
-    from service.store.errors import Conflict, NotFound
 
     try:
         chosen = settings if settings is not None else load_settings()
         return int(args.func(args, chosen) or 0)
     except KeyboardInterrupt:
         return 130
-    except InventoryInvalid as exc:
+    except Exception as exc:
+        status = _report(exc)
+        if status is None:
+            raise
+        return status
+
+
+def _report(exc: Exception) -> int | None:
+    """Print a user's error (bad input, missing object, unmigrated database) and return the
+    exit status; None for anything else. The error types are imported only here, so that
+    a command starts (and says what it does) before the database layer is loaded."""
+    from service.inventory.document import InventoryInvalid
+    from service.store.database import DatabaseNotMigrated
+    from service.store.errors import Conflict, NotFound
+
+    if isinstance(exc, InventoryInvalid):
         print(f"whichsense: invalid inventory: {exc}", file=sys.stderr)
         for problem in exc.problems[:50]:
             print(f"  {problem.pointer}: {problem.message}", file=sys.stderr)
         return 2
-    except (NotFound, Conflict, DatabaseNotMigrated, OSError, ValueError) as exc:
+    if isinstance(exc, (NotFound, Conflict, DatabaseNotMigrated, OSError, ValueError)):
         print(f"whichsense: error: {exc}", file=sys.stderr)
         return 2
+    return None
 
 
 if __name__ == "__main__":

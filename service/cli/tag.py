@@ -168,13 +168,14 @@ def _output(name: str) -> Iterator[IO[str]]:
 
 
 def run(args: argparse.Namespace, settings: Settings) -> int:
+    _say("loading the inventory and the model ...", None)
     from tqdm import tqdm
 
     from service.tagging.engines import build_disambiguator
 
     inventory, evidence, _ = load_inventory(args.inventory, settings, team=args.team)
     extra = f" and {len(evidence)} evidence items" if evidence else ""
-    _say(f"loading the model, encoding the senses of '{inventory.name}'{extra} ...", None)
+    _say(f"encoding the senses of '{inventory.name}'{extra} ...", None)
     disambiguator = build_disambiguator(
         settings,
         inventory,

@@ -106,7 +106,7 @@ def confidences_and_hits(
     hit = np.empty(len(gold), bool)
     priors = _priors(log_priors, similarities)
     for i, (row, right, prior) in enumerate(zip(similarities, gold, priors, strict=True)):
-        probabilities = softmax(np.asarray(row, np.float64), temperature, prior)
+        probabilities = softmax(np.asarray(row, np.float64), temperature, np.asarray(prior))
         best = int(np.argmax(probabilities))
         confidence[i] = probabilities[best]
         hit[i] = best == right

@@ -23,12 +23,14 @@ import os
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import torch
 from transformers import AutoModel, AutoTokenizer
 from transformers.utils import logging as transformers_logging
 
+from .model_files import transformer_directory
 from .windows import PlannedWindow, TextTokens, plan_windows
 
 DEFAULT_LAYERS: tuple[int, ...] = (6,)
@@ -128,18 +130,19 @@ class ContextEncoder:
         num_threads: int | None = None,
     ) -> None:
         self.model_path = Path(model_path) if model_path is not None else default_model_path()
-        if not (self.model_path / "config.json").is_file():
+        weights = transformer_directory(self.model_path)
+        if not (weights / "config.json").is_file():
             raise FileNotFoundError(f"no transformer model (config.json) in {self.model_path}")
         if num_threads is None:
             num_threads = default_thread_count()
         torch.set_num_threads(num_threads)
-        transformers_logging.set_verbosity_error()
-        transformers_logging.disable_progress_bar()
-        self.tokenizer = AutoTokenizer.from_pretrained(self.model_path, local_files_only=True)
+        transformers_logging.set_verbosity_error()  # type: ignore[no-untyped-call]
+        transformers_logging.disable_progress_bar()  # type: ignore[no-untyped-call]
+        self.tokenizer = AutoTokenizer.from_pretrained(weights, local_files_only=True)
         if not self.tokenizer.is_fast:
             raise ValueError("a fast tokenizer (offset mappings) is required")
         self.model = AutoModel.from_pretrained(
-            self.model_path, local_files_only=True, attn_implementation="eager"
+            weights, local_files_only=True, attn_implementation="eager"
         ).eval()
         self.layers = tuple(layers)
         self.gloss_template = gloss_template
@@ -152,7 +155,7 @@ class ContextEncoder:
         layer_text = "-".join(str(layer) for layer in self.layers)
         self.model_id = (
             f"{self.model_path.parent.name}.{self.model_path.name}"
-            f":{_directory_digest(self.model_path)}:L{layer_text}"
+            f":{_directory_digest(weights)}:L{layer_text}"
             f":w{self.max_window_tokens}-{self.min_window_tokens}"
         )
         self.tokens_encoded = 0
@@ -211,7 +214,8 @@ class ContextEncoder:
         order = sorted(range(len(texts)), key=lambda i: len(texts[i]))
         return [order[i : i + self.batch_size] for i in range(0, len(order), self.batch_size)]
 
-    def _forward(self, texts: Sequence[str], attentions: bool):
+    def _forward(self, texts: Sequence[str], attentions: bool) -> tuple[Any, Any]:
+        """(tokenizer batch encoding, model output) of `texts`, padded to the longest."""
         encoding = self.tokenizer(
             list(texts),
             padding=True,
@@ -232,7 +236,7 @@ class ContextEncoder:
         self.tokens_encoded += int(encoding["attention_mask"].sum())
         return encoding, output
 
-    def _pool_layers(self, hidden_states) -> torch.Tensor:
+    def _pool_layers(self, hidden_states: Sequence[torch.Tensor]) -> torch.Tensor:
         """(batch, tokens, dim): the mean of the chosen hidden layers."""
         return torch.stack([hidden_states[layer] for layer in self.layers]).mean(dim=0)
 
@@ -252,8 +256,8 @@ class ContextEncoder:
         details: bool,
     ) -> tuple[np.ndarray, list[SpanEncoding] | None]:
         spans_of: dict[int, list[int]] = {}
-        for span_id, (window, _s, _e) in enumerate(placed):
-            spans_of.setdefault(window, []).append(span_id)
+        for span_id, (window_index, _s, _e) in enumerate(placed):
+            spans_of.setdefault(window_index, []).append(span_id)
         vectors = np.zeros((len(placed), self.dimension), np.float32)
         encodings: list[SpanEncoding | None] = [None] * len(placed)
         texts = [text for text, _ in windows]
@@ -265,7 +269,7 @@ class ContextEncoder:
                 length = int(mask[row].sum())
                 offsets = encoding["offset_mapping"][row, :length].numpy()
                 special = encoding["special_tokens_mask"][row, :length].numpy().astype(bool)
-                window = None
+                window: EncodedWindow | None = None
                 if details:
                     window = self._window_details(
                         encoding, output, row, length, windows[window_id], offsets, special
@@ -286,7 +290,16 @@ class ContextEncoder:
                 encodings[span_id] = SpanEncoding(vectors[span_id], item.window, item.term_tokens)
         return vectors, (encodings if details else None)  # type: ignore[return-value]
 
-    def _window_details(self, encoding, output, row, length, window, offsets, special):
+    def _window_details(
+        self,
+        encoding: Any,
+        output: Any,
+        row: int,
+        length: int,
+        window: tuple[str, int],
+        offsets: np.ndarray,
+        special: np.ndarray,
+    ) -> EncodedWindow:
         text, text_start = window
         last = output.attentions[-1][row, :, :length, :length].mean(dim=0).numpy()
         per_layer = [
@@ -380,4 +393,5 @@ class ContextEncoder:
 
 def _normalise(vectors: np.ndarray) -> np.ndarray:
     norms = np.linalg.norm(vectors, axis=-1, keepdims=True)
-    return (vectors / np.maximum(norms, 1e-12)).astype(np.float32)
+    unit: np.ndarray = (vectors / np.maximum(norms, 1e-12)).astype(np.float32)
+    return unit

@@ -88,7 +88,7 @@ def lexnames_text() -> str:
     )
 
 
-class OfflineWordNetReader(WordNetCorpusReader):
+class OfflineWordNetReader(WordNetCorpusReader):  # type: ignore[misc]  # nltk is untyped
     """A `WordNetCorpusReader` that never looks for NLTK data packages.
 
     `map_wn` would load NLTK's `wordnet` package to map synsets between

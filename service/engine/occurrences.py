@@ -97,7 +97,7 @@ class OccurrenceFinder:
     def __init__(self, inventory: InventorySpec, wordnet: WordNetCorpusReader | None = None):
         self._wordnet = wordnet if wordnet is not None else open_wordnet()
         self._patterns: dict[str, list[_Pattern]] = {}
-        self._analysis_cache: dict[str, dict[str, frozenset[str]]] = {}
+        self._analysis_cache: dict[str, dict[str, tuple[frozenset[str], frozenset[str]]]] = {}
         self._inflecting_heads: set[str] = set()
         for order, spec in enumerate(inventory.terms):
             for surface in dict.fromkeys((spec.term, *spec.aliases)):

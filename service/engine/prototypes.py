@@ -354,11 +354,14 @@ class PrototypeBook:
             [self._accumulators[s].evidence_count for s in self.senses(term)], np.float64
         )
         smoothed = counts + smoothing
-        return np.log(smoothed / smoothed.sum())
+        prior: np.ndarray = np.log(smoothed / smoothed.sum())
+        return prior
 
     def similarities(self, term: str, vectors: np.ndarray) -> np.ndarray:
         """(n, senses) cosine similarities of unit `vectors` to the term's prototypes."""
-        return np.asarray(vectors, np.float32).reshape(-1, self.dimension) @ self.matrix(term).T
+        rows = np.asarray(vectors, np.float32).reshape(-1, self.dimension)
+        similarities: np.ndarray = rows @ self.matrix(term).T
+        return similarities
 
     def nearest(self, term: str, vector: np.ndarray) -> NearestEvidence | None:
         """The gloss, example or evidence item of `term` most similar to `vector`."""

@@ -7,7 +7,8 @@ from fastapi.responses import JSONResponse
 from sqlalchemy import text
 
 from service.api.problems import problem_response
-from service.config import model_dir_problem, resolve_model_dir
+from service.config import resolve_model_dir
+from service.engine.model_files import model_dir_problem
 from service.store.database import DatabaseNotMigrated, require_migrated
 
 router = APIRouter(tags=["operations"])
