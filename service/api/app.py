@@ -23,10 +23,11 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service import __version__
 from service.api import metrics
 from service.api.problems import install_problem_handlers, problem_response
-from service.api.routes import batches, disambiguate, evidence, health, inventories
+from service.api.routes import batches, disambiguate, evidence, health, inventories, review
 from service.config import Settings, get_settings
 from service.inventory.document import inventory_schema
 from service.store.database import require_migrated, session_factory
+from service.web import pages
 
 DESCRIPTION = (
     "Tells which sense of an ambiguous term each occurrence in your documents carries. "
@@ -133,6 +134,8 @@ def create_app(settings: Settings | None = None, *, check_migrated: bool = True)
     app.include_router(evidence.router)
     app.include_router(batches.router)
     app.include_router(disambiguate.router)
+    app.include_router(review.router)
+    pages.install(app)
     _mount_docs(app)
     return app
 

@@ -210,6 +210,7 @@ def run(args: argparse.Namespace) -> int:
         inventory = inventories.import_inventory_document(session, document)
         name, version = inventory.name, inventory.version
         admin = create_key(session, "admin", "demo")
+        reviewer = create_key(session, "review", "demo reviewer")
     print(f"inventory '{name}' version {version} loaded", file=sys.stderr)
 
     server = BackgroundServer(settings, args.host, args.port)
@@ -264,6 +265,7 @@ def run(args: argparse.Namespace) -> int:
             _write_report(held_out_path, args.output / "report", name)
         print(f"\nwhichsense is serving at {server.base_url}  (API docs: {server.base_url}/docs)")
         print(f"admin API key for this demo: {admin.token}")
+        print(f"review queue: {server.base_url}/review  (sign in with: {reviewer.token})")
         if args.exit:
             return 0 if status["state"] == "done" else 1
         print("press Ctrl-C to stop")
