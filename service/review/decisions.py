@@ -12,7 +12,7 @@ from __future__ import annotations
 import copy
 from collections.abc import Iterator
 from dataclasses import dataclass
-from datetime import datetime
+from datetime import datetime, timedelta
 from typing import Any
 
 import numpy as np
@@ -24,6 +24,7 @@ from service.engine.assignment import assign
 from service.engine.types import InventorySpec
 from service.inventory.document import parse_inventory_document
 from service.review.queue import (
+    CLAIM_SECONDS,
     auto_resolve,
     claim_is_live,
     field_text,
@@ -241,7 +242,7 @@ def undo_last(session: Session, team_id: int, key_id: str) -> ReviewDecision:
         raise NotFound("the decided item no longer exists")
     item.state = "pending"
     item.claimed_by = key_id
-    item.claim_expires_at = None
+    item.claim_expires_at = now + timedelta(seconds=CLAIM_SECONDS)
     for resolved in session.scalars(
         select(ReviewItem).where(ReviewItem.resolved_by_decision == decision.id)
     ):
@@ -324,6 +325,10 @@ def rescore_term(
             resolved.append(queued.id)
     session.flush()
     refresh_usefulness(session, item.team_id, item.inventory_id, item.term)
+    if decision_id is not None:
+        decision = session.get(ReviewDecision, decision_id)
+        if decision is not None:  # the share as this decision left it, resolutions included
+            decision.queue_share = queue_share(session, item.team_id, item.inventory_id)
     session.flush()
     return Rescored(len(items), resolved)
 
@@ -365,5 +370,4 @@ def list_decisions(
     query = query.order_by(ReviewDecision.id)
     if limit is not None:
         query = query.limit(limit)
-    for decision, name in session.execute(query):
-        yield decision, name
+    yield from session.execute(query).tuples()

@@ -302,12 +302,7 @@ def _next_item(
     session.commit()
     query = _query(chosen, order)
     if not items:
-        return _see_other(
-            "/review?"
-            + urlencode(
-                {"notice": "done", **dict(parse_qs(query, keep_blank_values=False))}, doseq=True
-            )
-        )
+        return _see_other("/review?" + "&".join(filter(None, ["notice=done", query])))
     return _see_other(f"/review/items/{items[0].id}" + (f"?{query}" if query else ""))
 
 

@@ -42,7 +42,9 @@ def test_clusters_match_scipy_average_linkage():
     rows /= np.linalg.norm(rows, axis=1, keepdims=True)
     ours = cluster_labels(rows, distance=0.45)
     # Reference: SciPy's hierarchical clustering, average linkage, cosine distance, cut at 0.45.
-    reference = fcluster(linkage(rows, method="average", metric="cosine"), t=0.45, criterion="distance")
+    reference = fcluster(
+        linkage(rows, method="average", metric="cosine"), t=0.45, criterion="distance"
+    )
     pairs_ours = {(i, j) for i in range(len(rows)) for j in range(len(rows)) if ours[i] == ours[j]}
     pairs_ref = {
         (i, j) for i in range(len(rows)) for j in range(len(rows)) if reference[i] == reference[j]

@@ -104,9 +104,10 @@ def test_wrong_sense_is_422_and_stores_nothing(queued):
     assert response.headers["content-type"] == "application/problem+json"
     with session_scope(queued.pipeline.settings) as session:
         assert session.scalars(select(ReviewDecision)).first() is None
-        assert session.scalars(
-            select(EvidenceRecord).where(EvidenceRecord.source == "review")
-        ).first() is None
+        assert (
+            session.scalars(select(EvidenceRecord).where(EvidenceRecord.source == "review")).first()
+            is None
+        )
 
 
 def test_two_reviewers_never_hold_the_same_item(queued, team_id):

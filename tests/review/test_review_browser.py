@@ -141,9 +141,7 @@ def test_review_three_items_with_the_keyboard_then_undo(browser: Any, live: Live
             assert decision.evidence_id is not None
         changed = [i for i in before if abs(items[i].confidence - before[i]) > 1e-4]
         assert changed, "the queue was not re-scored"
-    reviewed = [
-        r for r in live.pipeline.all_results(live.batch_id) if r["status"] == "reviewed"
-    ]
+    reviewed = [r for r in live.pipeline.all_results(live.batch_id) if r["status"] == "reviewed"]
     assert len(reviewed) == 3
     assert all("machine_answer" in r for r in reviewed)
     # undo with the keyboard: the last decision is taken back and its item shown again
@@ -165,7 +163,7 @@ def test_twenty_decisions_page_latency(browser: Any, live: Live) -> None:
         timings.append(decide_by_keyboard(page))
     assert len(timings) == 20, f"only {len(timings)} items could be decided"
     ordered = sorted(timings)
-    p95 = ordered[min(len(ordered) - 1, int(round(0.95 * len(ordered))) - 1)]
+    p95 = ordered[min(len(ordered) - 1, round(0.95 * len(ordered)) - 1)]
     print(
         f"\n20 keyboard decisions: median {statistics.median(timings) * 1000:.0f} ms, "
         f"p95 {p95 * 1000:.0f} ms, total {sum(timings):.1f} s"
