@@ -370,4 +370,4 @@ def list_decisions(
     query = query.order_by(ReviewDecision.id)
     if limit is not None:
         query = query.limit(limit)
-    yield from session.execute(query).tuples()
+    yield from ((decision, name) for decision, name in session.execute(query))

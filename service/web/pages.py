@@ -255,9 +255,7 @@ def queue_page(
             "inventory_names": dict(
                 session.execute(
                     select(Inventory.id, Inventory.name).where(Inventory.team_id == who.team_id)
-                )
-                .tuples()
-                .all()
+                ).all()
             ),
             "terms": sorted({t for _, t in terms}),
             "batches": sorted(batches),
