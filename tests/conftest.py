@@ -157,13 +157,32 @@ def settings(
     get_settings.cache_clear()
 
 
+TEAM = "alpha"
+
+
 @pytest.fixture
-def api_keys(settings: Settings) -> dict[str, str]:
-    """One live token per scope."""
+def team_id(settings: Settings) -> int:
+    """The test team's id: every key, inventory and batch of a test belongs to it."""
+    from service.store.teams import create_team
+
+    with database.session_scope(settings) as session:
+        return create_team(session, TEAM).id
+
+
+def team_keys(settings: Settings, team: int) -> dict[str, str]:
+    """One live token per scope in `team`."""
     from service.store.keys import create_key
 
     with database.session_scope(settings) as session:
-        return {scope: create_key(session, scope).token for scope in ("ingest", "review", "admin")}
+        return {
+            scope: create_key(session, team, scope).token for scope in ("ingest", "review", "admin")
+        }
+
+
+@pytest.fixture
+def api_keys(settings: Settings, team_id: int) -> dict[str, str]:
+    """One live token per scope, all of the test team."""
+    return team_keys(settings, team_id)
 
 
 @pytest.fixture

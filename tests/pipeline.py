@@ -68,6 +68,7 @@ class Pipeline:
     settings: Settings
     client: TestClient
     keys: dict[str, str]
+    team_id: int
 
     @property
     def ingest(self) -> dict[str, str]:
@@ -222,19 +223,23 @@ def warm_engines(encoder: Any) -> None:
 
 @pytest.fixture
 def make_pipeline(
-    settings: Settings, api_keys: dict[str, str], inventory_document: dict[str, Any], warm_engines
+    settings: Settings,
+    api_keys: dict[str, str],
+    team_id: int,
+    inventory_document: dict[str, Any],
+    warm_engines: Any,
 ) -> Iterator[Any]:
     """Build a Pipeline over the test database with some settings changed."""
     clients: list[TestClient] = []
     with session_scope(settings) as session:
-        create_inventory(session, inventory_document)
+        create_inventory(session, team_id, inventory_document)
 
     def build(**overrides: Any) -> Pipeline:
         chosen = settings.model_copy(update=overrides)
         client = TestClient(create_app(chosen), raise_server_exceptions=False)
         client.__enter__()
         clients.append(client)
-        return Pipeline(chosen, client, api_keys)
+        return Pipeline(chosen, client, api_keys, team_id)
 
     yield build
     for client in clients:

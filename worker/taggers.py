@@ -44,7 +44,7 @@ class EngineTagger:
     def tag(
         self, claim: Claim, documents: Sequence[Document], *, rationale: bool
     ) -> list[DocumentResult]:
-        pin = Pin(claim.inventory_name, claim.inventory_version, claim.evidence_watermark)
+        pin = Pin(claim.inventory_id, claim.inventory_version, claim.evidence_watermark)
 
         def engine() -> PinnedEngine:
             with self.sessions() as session:

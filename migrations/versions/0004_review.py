@@ -1,7 +1,7 @@
 """Review queue: items with their context vectors, decisions, settings, browser sessions.
 
 Revision ID: 0004_review
-Revises: 0002
+Revises: 0003_teams
 Create Date: 2026-12-04
 """
 
@@ -11,7 +11,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = "0004_review"
-down_revision = "0002"
+down_revision = "0003_teams"
 branch_labels = None
 depends_on = None
 
@@ -39,6 +39,7 @@ def upgrade() -> None:
         sa.Column("resolved_by_decision", sa.Integer(), nullable=True),
         sa.Column("created_at", sa.DateTime(timezone=True), nullable=False),
         sa.ForeignKeyConstraint(["result_id"], ["batch_results.id"], ondelete="CASCADE"),
+        sa.ForeignKeyConstraint(["team_id"], ["teams.id"], ondelete="CASCADE"),
         sa.ForeignKeyConstraint(["batch_id"], ["batches.id"], ondelete="CASCADE"),
         sa.ForeignKeyConstraint(["inventory_id"], ["inventories.id"], ondelete="CASCADE"),
         sa.PrimaryKeyConstraint("id"),
@@ -67,6 +68,7 @@ def upgrade() -> None:
         sa.Column("created_at", sa.DateTime(timezone=True), nullable=False),
         sa.Column("undone_at", sa.DateTime(timezone=True), nullable=True),
         sa.ForeignKeyConstraint(["item_id"], ["review_items.id"], ondelete="CASCADE"),
+        sa.ForeignKeyConstraint(["team_id"], ["teams.id"], ondelete="CASCADE"),
         sa.ForeignKeyConstraint(["inventory_id"], ["inventories.id"], ondelete="CASCADE"),
         sa.PrimaryKeyConstraint("id"),
     )
@@ -91,6 +93,7 @@ def upgrade() -> None:
         sa.Column("created_at", sa.DateTime(timezone=True), nullable=False),
         sa.Column("expires_at", sa.DateTime(timezone=True), nullable=False),
         sa.Column("ended_at", sa.DateTime(timezone=True), nullable=True),
+        sa.ForeignKeyConstraint(["team_id"], ["teams.id"], ondelete="CASCADE"),
         sa.PrimaryKeyConstraint("id"),
     )
     op.create_table(

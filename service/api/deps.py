@@ -31,11 +31,13 @@ def get_session(request: Request) -> Iterator[Session]:
 
 @dataclass(frozen=True)
 class Caller:
-    """The authenticated API key behind a request."""
+    """The authenticated API key behind a request, and the team every store call is
+    scoped to (another team's rows are invisible to it)."""
 
     key_id: str
     scope: str
     signing_secret: str
+    team_id: int
 
 
 def require_scope(needed: Scope | None) -> Callable[..., Caller]:
@@ -58,7 +60,7 @@ def require_scope(needed: Scope | None) -> Callable[..., Caller]:
             raise ProblemError(
                 403, f"this route needs scope '{needed}'; the key has scope '{key.scope}'"
             )
-        caller = Caller(key.key_id, key.scope, key.signing_secret)
+        caller = Caller(key.key_id, key.scope, key.signing_secret, key.team_id)
         # End the lookup's transaction now: on SQLite it holds the single write lock,
         # which must not stay taken while a route waits for a slow request body.
         session.rollback()

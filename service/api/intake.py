@@ -111,12 +111,14 @@ class Intake:
         settings: Settings,
         *,
         key_id: str,
+        team_id: int,
         idempotency_key: str | None,
     ) -> None:
         self.request = request
         self.session = session
         self.settings = settings
         self.key_id = key_id
+        self.team_id = team_id
         self.idempotency_key = idempotency_key
         self.media = request.headers.get("content-type", "").split(";")[0].strip().lower()
         self.digest = hashlib.sha256()
@@ -270,6 +272,7 @@ class Intake:
         try:
             self.batch = start_batch(
                 self.session,
+                self.team_id,
                 inventory_name=header.inventory,
                 submitted_by=self.key_id,
                 chunk_size=self.settings.chunk_size,
@@ -283,7 +286,10 @@ class Intake:
             raise IdempotencyClash() from None
         engines = shared_engines()
         spec = engines.spec(
-            self.session, self.settings.database_url, header.inventory, self.batch.inventory_version
+            self.session,
+            self.settings.database_url,
+            self.batch.inventory_id,
+            self.batch.inventory_version,
         )
         self._finder = engines.finder(self.settings.database_url, spec)
         self._sink = DocumentSink(self.session, self.batch)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 
+from service.cli.teams import add_team_option, team_id
 from service.config import get_settings, resolve_model_dir
 from service.engine import DEFAULT_TEMPERATURE, PrototypeBook, calibrate_book
 from service.store import inventories
@@ -24,14 +25,16 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     )
     parser.add_argument("name", help="a stored inventory")
     parser.add_argument("--dry-run", action="store_true", help="report without storing")
+    add_team_option(parser)
     parser.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
     settings = get_settings()
     with session_scope(settings) as session:
-        spec = inventories.load_inventory_spec(session, args.name)
-        inventory_id = inventories.get_inventory(session, args.name).id
+        team = team_id(session, args.team)
+        spec = inventories.load_inventory_spec(session, team, args.name)
+        inventory_id = inventories.get_inventory(session, team, args.name).id
         evidence = load_evidence(session, inventory_id)
     if not evidence:
         print(
@@ -52,6 +55,7 @@ def run(args: argparse.Namespace) -> int:
     with session_scope(settings) as session:
         inventory = inventories.edit_inventory(
             session,
+            team,
             args.name,
             lambda document: document["settings"].update(temperature=report.temperature),
         )

@@ -30,6 +30,7 @@ from service.config import Settings, get_settings
 from service.store import inventories
 from service.store.database import session_scope, upgrade
 from service.store.keys import create_key
+from service.store.teams import demo_team
 
 TERMINAL_STATES = {"done", "failed", "cancelled"}
 
@@ -64,6 +65,9 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     )
     parser.add_argument("--no-report", action="store_true", help="skip the evaluation report")
     parser.set_defaults(func=run)
+
+
+DEMO_TEAM = "demo"
 
 
 def _fresh_sqlite(url: str) -> None:
@@ -207,11 +211,12 @@ def run(args: argparse.Namespace) -> int:
     upgrade(settings.database_url)
     document = json.loads((args.corpus / "inventory.json").read_text(encoding="utf-8"))
     with session_scope(settings) as session:
-        inventory = inventories.import_inventory_document(session, document)
+        team = demo_team(session, DEMO_TEAM)
+        inventory = inventories.import_inventory_document(session, team.id, document)
         name, version = inventory.name, inventory.version
-        admin = create_key(session, "admin", "demo")
-        reviewer = create_key(session, "review", "demo reviewer")
-    print(f"inventory '{name}' version {version} loaded", file=sys.stderr)
+        admin = create_key(session, team.id, "admin", "demo")
+        reviewer = create_key(session, team.id, "review", "demo reviewer")
+    print(f"team '{DEMO_TEAM}': inventory '{name}' version {version} loaded", file=sys.stderr)
 
     server = BackgroundServer(settings, args.host, args.port)
     print(f"starting the API with an in-process worker on {server.base_url} ...", file=sys.stderr)
@@ -264,7 +269,7 @@ def run(args: argparse.Namespace) -> int:
         if not args.no_report:
             _write_report(held_out_path, args.output / "report", name)
         print(f"\nwhichsense is serving at {server.base_url}  (API docs: {server.base_url}/docs)")
-        print(f"admin API key for this demo: {admin.token}")
+        print(f"admin API key of team '{DEMO_TEAM}' (it sees this team only): {admin.token}")
         print(f"review queue: {server.base_url}/review  (sign in with: {reviewer.token})")
         if args.exit:
             return 0 if status["state"] == "done" else 1
@@ -287,9 +292,11 @@ def _run_subcommand(*words: str) -> None:
 
 def _calibrate(inventory: str) -> None:
     print("fitting the confidence temperature on the evidence ...", file=sys.stderr)
-    _run_subcommand("calibrate", inventory)
+    _run_subcommand("calibrate", inventory, "--team", DEMO_TEAM)
 
 
 def _write_report(labeled: Path, report: Path, inventory: str) -> None:
-    _run_subcommand("evaluate", str(labeled), "--inventory", inventory, "-o", str(report))
+    _run_subcommand(
+        "evaluate", str(labeled), "--inventory", inventory, "--team", DEMO_TEAM, "-o", str(report)
+    )
     print(f"evaluation report: {report / 'report.html'}")

@@ -9,6 +9,7 @@ import time
 from collections import Counter
 from pathlib import Path
 
+from service.cli.teams import add_team_option, team_id
 from service.engine.types import Evidence, InventorySpec
 from service.evaluation.labeled import LabeledOccurrence, read_labeled
 from service.evaluation.report import Outcome, summarise, write_report
@@ -34,11 +35,12 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     parser.add_argument("--no-evidence", action="store_true",
                         help="ignore a stored inventory's evidence (glosses and examples only)")
     parser.add_argument("--limit", type=int, metavar="N", help="evaluate the first N only")
+    add_team_option(parser)
     parser.set_defaults(func=run)
 
 
 def load_inventory(
-    reference: str, with_evidence: bool
+    reference: str, with_evidence: bool, team: str | None = None
 ) -> tuple[InventorySpec, list[Evidence], str]:
     """(inventory, its stored evidence, where it came from): a file first, else the store."""
     path = Path(reference)
@@ -51,8 +53,9 @@ def load_inventory(
     from service.store.inventories import get_inventory, load_inventory_spec
 
     with session_scope() as session:
-        spec = load_inventory_spec(session, reference)
-        evidence = load_evidence(session, get_inventory(session, reference).id) if (
+        chosen = team_id(session, team)
+        spec = load_inventory_spec(session, chosen, reference)
+        evidence = load_evidence(session, get_inventory(session, chosen, reference).id) if (
             with_evidence) else []
     return spec, evidence, "database"
 
@@ -93,7 +96,7 @@ def run(args: argparse.Namespace) -> int:
     items = list(read_labeled(args.labeled))
     if args.limit is not None:
         items = items[: max(0, args.limit)]
-    spec, evidence, source = load_inventory(args.inventory, not args.no_evidence)
+    spec, evidence, source = load_inventory(args.inventory, not args.no_evidence, args.team)
     skipped: Counter[str] = Counter()
     matched = match_terms(items, spec, skipped)
     if not matched:

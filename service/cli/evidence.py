@@ -8,6 +8,7 @@ import sys
 from collections import Counter
 from pathlib import Path
 
+from service.cli.teams import add_team_option, team_id
 from service.evaluation.evidence_source import file_evidence, restrict_to_inventory
 from service.wordnet.corpus import CorpusStats
 
@@ -26,6 +27,7 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     load.add_argument("file", type=Path)
     load.add_argument("--inventory", required=True, metavar="NAME")
     load.add_argument("--limit", type=int, metavar="N", help="store at most N items")
+    add_team_option(load)
     load.set_defaults(func=run)
 
 
@@ -37,11 +39,12 @@ def run(args: argparse.Namespace) -> int:
     corpus_stats = CorpusStats()
     skipped: Counter[str] = Counter()
     with session_scope() as session:
-        spec = load_inventory_spec(session, args.inventory)
+        team = team_id(session, args.team)
+        spec = load_inventory_spec(session, team, args.inventory)
         fitting = restrict_to_inventory(file_evidence(args.file, corpus_stats), spec, skipped)
         if args.limit is not None:
             fitting = itertools.islice(fitting, max(0, args.limit))
-        stored = add_evidence(session, args.inventory, fitting)
+        stored = add_evidence(session, team, args.inventory, fitting)
     print(f"stored {stored} evidence items in inventory '{args.inventory}'")
     if corpus_stats.instances:
         print(

@@ -7,6 +7,7 @@ import json
 import sys
 from pathlib import Path
 
+from service.cli.teams import add_team_option, team_id
 from service.inventory.csv_format import read_inventory_csv, write_inventory_csv
 from service.inventory.document import dump_document
 from service.store import inventories as repo
@@ -20,6 +21,7 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     load = actions.add_parser("import", help="create or update an inventory from a file")
     load.add_argument("file", type=Path, help="inventory document (.json) or CSV (.csv)")
     load.add_argument("--name", help="inventory name (required for CSV)")
+    add_team_option(load)
     load.set_defaults(func=run_import)
 
     dump = actions.add_parser("export", help="write an inventory to a file or stdout")
@@ -27,9 +29,12 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     dump.add_argument("-o", "--output", type=Path, help="file to write (default: stdout)")
     dump.add_argument("--format", choices=("json", "csv"), help="default: from -o's suffix")
     dump.add_argument("--version", type=int, help="an older version (default: current)")
+    add_team_option(dump)
     dump.set_defaults(func=run_export)
 
-    actions.add_parser("list", help="list inventories").set_defaults(func=run_list)
+    listing = actions.add_parser("list", help="list inventories")
+    add_team_option(listing)
+    listing.set_defaults(func=run_list)
     try:
         from service.cli.wordnet import add_wordnet_parser
     except ModuleNotFoundError as exc:
@@ -55,14 +60,14 @@ def read_document_file(path: Path, name: str | None = None) -> dict:
 def run_import(args: argparse.Namespace) -> int:
     document = read_document_file(args.file, args.name)
     with session_scope() as session:
-        inventory = repo.import_inventory_document(session, document)
+        inventory = repo.import_inventory_document(session, team_id(session, args.team), document)
         print(f"inventory '{inventory.name}' is now at version {inventory.version}")
     return 0
 
 
 def run_export(args: argparse.Namespace) -> int:
     with session_scope() as session:
-        inventory = repo.get_inventory(session, args.name)
+        inventory = repo.get_inventory(session, team_id(session, args.team), args.name)
         version = args.version or inventory.version
         document = repo.version_document(session, inventory, version)
     chosen = args.format or ("csv" if args.output and args.output.suffix == ".csv" else "json")
@@ -75,9 +80,9 @@ def run_export(args: argparse.Namespace) -> int:
     return 0
 
 
-def run_list(_args: argparse.Namespace) -> int:
+def run_list(args: argparse.Namespace) -> int:
     with session_scope() as session:
-        for inventory in repo.list_inventories(session):
+        for inventory in repo.list_inventories(session, team_id(session, args.team)):
             document = repo.current_document(session, inventory)
             senses = sum(len(t["senses"]) for t in document["terms"])
             print(

@@ -1,11 +1,17 @@
-"""`whichsense keys create|list|revoke`: API keys (shown once, stored hashed)."""
+"""`whichsense keys create|list|revoke`: API keys (shown once, stored hashed).
+
+Every key belongs to one team (`--team`; may be left out while there is one
+team, and on an empty database a team `default` is made)."""
 
 from __future__ import annotations
 
 import argparse
 
+from service.cli.teams import add_team_option, team_id
 from service.store.database import session_scope
 from service.store.keys import SCOPES, create_key, list_keys, revoke_key
+from service.store.models import Team
+from service.store.teams import find_team
 
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
@@ -15,8 +21,11 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     create.add_argument("--scope", choices=SCOPES, required=True)
     create.add_argument("--label", default="", help="who or what uses the key")
     create.add_argument("--quiet", action="store_true", help="print only the key")
+    add_team_option(create)
     create.set_defaults(func=run_create)
-    actions.add_parser("list", help="list keys (never their secrets)").set_defaults(func=run_list)
+    listing = actions.add_parser("list", help="list keys (never their secrets)")
+    listing.add_argument("--team", metavar="NAME", help="only this team's keys")
+    listing.set_defaults(func=run_list)
     revoke = actions.add_parser("revoke", help="revoke a key by its id")
     revoke.add_argument("key_id")
     revoke.set_defaults(func=run_revoke)
@@ -24,11 +33,14 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
 
 def run_create(args: argparse.Namespace) -> int:
     with session_scope() as session:
-        issued = create_key(session, args.scope, args.label)
+        team = team_id(session, args.team)
+        issued = create_key(session, team, args.scope, args.label)
+        team_name = session.get_one(Team, team).name
     if args.quiet:
         print(issued.token)
         return 0
     print(f"key id:          {issued.key_id}")
+    print(f"team:            {team_name}")
     print(f"scope:           {issued.scope}")
     print(f"API key:         {issued.token}")
     print(f"webhook secret:  {issued.signing_secret}")
@@ -36,11 +48,13 @@ def run_create(args: argparse.Namespace) -> int:
     return 0
 
 
-def run_list(_args: argparse.Namespace) -> int:
+def run_list(args: argparse.Namespace) -> int:
     with session_scope() as session:
-        for key in list_keys(session):
+        only = find_team(session, args.team).id if args.team else None
+        names = {team.id: team.name for team in session.query(Team)}
+        for key in list_keys(session, only):
             state = f"revoked {key.revoked_at:%Y-%m-%d}" if key.revoked_at else "active"
-            print(f"{key.key_id}\t{key.scope}\t{state}\t{key.label}")
+            print(f"{key.key_id}\t{names[key.team_id]}\t{key.scope}\t{state}\t{key.label}")
     return 0
 
 

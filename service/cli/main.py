@@ -9,7 +9,7 @@ import sys
 from collections.abc import Sequence
 
 from service import __version__
-from service.cli import database, inventory, keys, serve
+from service.cli import database, inventory, keys, serve, teams
 from service.inventory.document import InventoryInvalid
 from service.store.database import DatabaseNotMigrated
 from service.store.errors import Conflict, NotFound
@@ -23,7 +23,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"whichsense {__version__}")
     parser.add_argument("-v", "--verbose", action="store_true", help="log more")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
-    for module in (database, keys, inventory, serve):
+    for module in (database, teams, keys, inventory, serve):
         module.add_parser(commands)
     for name in ("tag", "evidence", "calibrate", "benchmark", "evaluate", "worker", "demo"):
         _add_optional(commands, name)

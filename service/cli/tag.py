@@ -23,6 +23,7 @@ from typing import IO, Any, BinaryIO
 from tqdm import tqdm
 
 from service.batches.documents import parse_document
+from service.cli.teams import add_team_option, team_id
 from service.engine.errors import DocumentTooLarge
 from service.engine.types import Document, Evidence, InventorySpec
 from service.line_errors import LineError
@@ -58,6 +59,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         help="leave out the erasure rationale of review occurrences (much faster)",
     )
     parser.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
+    add_team_option(parser)
     parser.set_defaults(func=run)
 
 
@@ -132,7 +134,9 @@ def _say(message: str, progress: tqdm | None) -> None:
         print(f"whichsense tag: {message}", file=sys.stderr)
 
 
-def load_inventory(reference: str) -> tuple[InventorySpec, list[Evidence]]:
+def load_inventory(
+    reference: str, team: str | None = None
+) -> tuple[InventorySpec, list[Evidence]]:
     """An inventory from a document file, or by name (with its evidence) from the database."""
     path = Path(reference)
     if path.is_file():
@@ -145,8 +149,9 @@ def load_inventory(reference: str) -> tuple[InventorySpec, list[Evidence]]:
     from service.store.inventories import get_inventory, load_inventory_spec
 
     with session_scope() as session:
-        spec = load_inventory_spec(session, reference)
-        evidence = load_evidence(session, get_inventory(session, reference).id)
+        chosen = team_id(session, team)
+        spec = load_inventory_spec(session, chosen, reference)
+        evidence = load_evidence(session, get_inventory(session, chosen, reference).id)
     return spec, evidence
 
 
@@ -184,7 +189,7 @@ def run(args: argparse.Namespace) -> int:
     from service.engine.disambiguator import Disambiguator
     from service.engine.encoder import ContextEncoder
 
-    inventory, evidence = load_inventory(args.inventory)
+    inventory, evidence = load_inventory(args.inventory, args.team)
     settings = get_settings()
     encoder = ContextEncoder(resolve_model_dir(settings))
     # The engine counts characters; a document within the byte limit is within this one too.

@@ -6,6 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from service.cli.teams import add_team_option, team_id
 from service.engine.lexicon import open_wordnet
 from service.inventory.document import dump_document, spec_to_document
 from service.wordnet.inventory import all_lemmas, build_wordnet_inventory
@@ -31,6 +32,7 @@ def add_wordnet_parser(actions: argparse._SubParsersAction) -> None:
     parser.add_argument("--description", default="", help="inventory description")
     parser.add_argument("-o", "--output", type=Path, metavar="FILE.json",
                         help="write the inventory document here instead of importing it")
+    add_team_option(parser)
     parser.set_defaults(func=run_wordnet)
 
 
@@ -74,7 +76,7 @@ def run_wordnet(args: argparse.Namespace) -> int:
     from service.store.inventories import import_inventory_document
 
     with session_scope() as session:
-        inventory = import_inventory_document(session, document)
+        inventory = import_inventory_document(session, team_id(session, args.team), document)
         print(f"inventory '{inventory.name}' is now at version {inventory.version} "
               f"({len(spec.terms)} terms, {senses} senses)")
     return 0

@@ -33,6 +33,7 @@ from service.review.queue import (
     refresh_usefulness,
     vector_from_bytes,
 )
+from service.store.audit import record_audit
 from service.store.batches import schedule_webhook
 from service.store.clock import as_utc_or_none, database_now
 from service.store.errors import Conflict, NotFound
@@ -199,6 +200,23 @@ def record_decision(
         )
         or 0
     )
+    record_audit(
+        session,
+        item.team_id,
+        key_id,
+        "review.decide",
+        f"review-item/{item.id}",
+        {
+            "decision_id": decision.id,
+            "inventory": inventory.name,
+            "inventory_version": inventory.version,
+            "term": item.term,
+            "sense_id": sense_id,
+            "machine_sense_id": decision.machine_sense_id,
+            "batch_id": row.batch_id,
+            "evidence_id": evidence_id,
+        },
+    )
     announce_reviewed(session, row.batch_id)
     session.flush()
     return decision
@@ -254,6 +272,14 @@ def undo_last(session: Session, team_id: int, key_id: str) -> ReviewDecision:
     row = session.get(BatchResult, item.result_id)
     if row is not None:
         _restore(row)
+    record_audit(
+        session,
+        team_id,
+        key_id,
+        "review.undo",
+        f"review-item/{item.id}",
+        {"decision_id": decision.id, "sense_id": decision.sense_id},
+    )
     session.flush()
     refresh_usefulness(session, team_id, item.inventory_id, item.term)
     inventory = session.get(Inventory, item.inventory_id)
@@ -285,7 +311,7 @@ def rescore_term(
     items = pending_items(session, item.team_id, item.inventory_id, item.term)
     if not items:
         return Rescored(0, [])
-    pin = Pin(inventory.name, inventory.version, evidence_watermark(session, inventory.id))
+    pin = Pin(inventory.id, inventory.version, evidence_watermark(session, inventory.id))
     engine = shared_engines().engine(session, settings, pin)
     spec = engine.disambiguator.inventory
     book = engine.disambiguator.prototypes

@@ -99,7 +99,7 @@ def create_sense(
         entry = find_term(document, term)
         entry["senses"].append({"id": sense_id, "gloss": gloss.strip(), "examples": [], "tags": []})
 
-    edit_inventory(session, inventory.name, change)
+    edit_inventory(session, team_id, inventory.name, change, key_id=key_id)
     session.flush()
     return [
         record_decision(session, item, key_id, sense_id, curator=True)

@@ -173,7 +173,7 @@ def item_view(session: Session, settings: Settings, item: ReviewItem) -> ItemVie
     engine = shared_engines().engine(
         session,
         settings,
-        Pin(inventory.name, inventory.version, evidence_watermark(session, inventory.id)),
+        Pin(inventory.id, inventory.version, evidence_watermark(session, inventory.id)),
     )
     book = engine.disambiguator.prototypes
     if item.term in book.terms():

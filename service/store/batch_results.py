@@ -4,6 +4,9 @@ Every listing is keyset-paginated on positions that never move (document
 position, then result id), so pages never repeat a row. Chunks finish out of
 order, though: while a batch is running, a result can land behind a cursor
 already passed. Page a finished batch for a complete read (the README says so).
+
+Each function takes the `Batch` row, which only a team-scoped lookup
+(`batches.get_batch(session, team_id, ...)`) hands out: no team, no rows.
 """
 
 from __future__ import annotations
@@ -32,7 +35,7 @@ class ResultFilter:
 
 def results_page(
     session: Session,
-    batch_id: str,
+    batch: Batch,
     chosen: ResultFilter,
     *,
     after: tuple[int, int] | None,
@@ -40,7 +43,7 @@ def results_page(
 ) -> tuple[list[dict[str, Any]], tuple[int, int] | None]:
     """Up to `limit` results after the (document position, id) `after`; and the next key."""
     query = select(BatchResult.document_position, BatchResult.id, BatchResult.result).where(
-        BatchResult.batch_id == batch_id
+        BatchResult.batch_id == batch.id
     )
     if chosen.status is not None:
         query = query.where(BatchResult.status == chosen.status)
@@ -71,14 +74,14 @@ def results_page(
 
 def documents_page(
     session: Session,
-    batch_id: str,
+    batch: Batch,
     *,
     after: int | None,
     limit: int,
     state: str | None = None,
 ) -> tuple[list[BatchDocument], int | None]:
     """Documents in submission order after position `after` (optionally of one state)."""
-    query = select(BatchDocument).where(BatchDocument.batch_id == batch_id)
+    query = select(BatchDocument).where(BatchDocument.batch_id == batch.id)
     if state is not None:
         query = query.where(BatchDocument.state == state)
     if after is not None:
@@ -89,14 +92,14 @@ def documents_page(
     return rows, (rows[-1].position if more and rows else None)
 
 
-def find_document(session: Session, batch_id: str, document_id: str) -> BatchDocument:
+def find_document(session: Session, batch: Batch, document_id: str) -> BatchDocument:
     document = session.scalars(
         select(BatchDocument).where(
-            BatchDocument.batch_id == batch_id, BatchDocument.document_id == document_id
+            BatchDocument.batch_id == batch.id, BatchDocument.document_id == document_id
         )
     ).one_or_none()
     if document is None:
-        raise NotFound(f"batch '{batch_id}' has no document '{document_id}'")
+        raise NotFound(f"batch '{batch.id}' has no document '{document_id}'")
     return document
 
 

@@ -42,6 +42,7 @@ def new_batch_id() -> str:
 
 def start_batch(
     session: Session,
+    team_id: int,
     *,
     inventory_name: str,
     submitted_by: str,
@@ -56,9 +57,10 @@ def start_batch(
     Flushed at once, so a clashing idempotency key fails here (IntegrityError),
     before any document is read.
     """
-    inventory = get_inventory(session, inventory_name)
+    inventory = get_inventory(session, team_id, inventory_name)
     batch = Batch(
         id=new_batch_id(),
+        team_id=team_id,
         inventory_id=inventory.id,
         inventory_name=inventory.name,
         inventory_version=inventory.version,
@@ -146,8 +148,11 @@ def schedule_webhook(batch: Batch, now: datetime) -> None:
         batch.webhook_next_attempt_at = now
 
 
-def get_batch(session: Session, batch_id: str, *, for_update: bool = False) -> Batch:
-    query = select(Batch).where(Batch.id == batch_id)
+def get_batch(
+    session: Session, team_id: int, batch_id: str, *, for_update: bool = False
+) -> Batch:
+    """The team's batch; another team's is NotFound, exactly like a missing one."""
+    query = select(Batch).where(Batch.team_id == team_id, Batch.id == batch_id)
     if for_update:
         query = query.with_for_update()
     batch = session.scalars(query).one_or_none()
@@ -156,9 +161,15 @@ def get_batch(session: Session, batch_id: str, *, for_update: bool = False) -> B
     return batch
 
 
-def find_by_idempotency_key(session: Session, key_id: str, idempotency_key: str) -> Batch | None:
+def find_by_idempotency_key(
+    session: Session, team_id: int, key_id: str, idempotency_key: str
+) -> Batch | None:
     return session.scalars(
-        select(Batch).where(Batch.submitted_by == key_id, Batch.idempotency_key == idempotency_key)
+        select(Batch).where(
+            Batch.team_id == team_id,
+            Batch.submitted_by == key_id,
+            Batch.idempotency_key == idempotency_key,
+        )
     ).one_or_none()
 
 
@@ -201,14 +212,14 @@ def webhook_attempts(session: Session, batch_id: str) -> list[WebhookAttempt]:
     )
 
 
-def cancel_batch(session: Session, batch_id: str, now: datetime) -> Batch:
+def cancel_batch(session: Session, team_id: int, batch_id: str, now: datetime) -> Batch:
     """Stop a queued or running batch: no chunk is processed or written after this commits.
 
     A chunk a worker is busy with loses its lease, so that worker's write is
     refused; results already written stay. Cancelling a cancelled batch is a
     no-op; a finished one is a Conflict.
     """
-    batch = get_batch(session, batch_id, for_update=True)
+    batch = get_batch(session, team_id, batch_id, for_update=True)
     if batch.state == "cancelled":
         return batch
     if batch.state in TERMINAL_BATCH_STATES:

@@ -75,7 +75,14 @@ def session_factory(url: str) -> sessionmaker[Session]:
 def session_scope(settings: Settings | None = None) -> Iterator[Session]:
     """A session that commits on success and rolls back on any error."""
     settings = settings or get_settings()
-    session = session_factory(settings.database_url)()
+    with session_scope_for(settings.database_url) as session:
+        yield session
+
+
+@contextmanager
+def session_scope_for(url: str) -> Iterator[Session]:
+    """`session_scope` for a database URL."""
+    session = session_factory(url)()
     try:
         yield session
         session.commit()

@@ -15,14 +15,16 @@ from service.store.models import EvidenceRecord
 INSERT_BATCH = 2_000
 
 
-def add_evidence(session: Session, inventory_name: str, evidences: Iterable[Evidence]) -> int:
+def add_evidence(
+    session: Session, team_id: int, inventory_name: str, evidences: Iterable[Evidence]
+) -> int:
     """Store evidence for known terms and senses; returns how many rows were added.
 
     Evidence naming a sense the inventory lacks is refused as a whole (Conflict)
     so an import never half-lands.
     """
-    inventory = get_inventory(session, inventory_name)
-    spec = load_inventory_spec(session, inventory_name)
+    inventory = get_inventory(session, team_id, inventory_name)
+    spec = load_inventory_spec(session, team_id, inventory_name)
     known = {(term.term, sense.sense_id) for term in spec.terms for sense in term.senses}
     added = 0
     pending: list[EvidenceRecord] = []

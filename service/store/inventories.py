@@ -22,6 +22,7 @@ from service.inventory.document import (
     parse_inventory_document,
     spec_to_document,
 )
+from service.store.audit import record_audit
 from service.store.errors import Conflict, NotFound
 from service.store.models import (
     Inventory,
@@ -35,12 +36,19 @@ from service.store.models import (
 Document = dict[str, Any]
 
 
-def list_inventories(session: Session) -> list[Inventory]:
-    return list(session.scalars(select(Inventory).order_by(Inventory.name)))
+def list_inventories(session: Session, team_id: int) -> list[Inventory]:
+    return list(
+        session.scalars(
+            select(Inventory).where(Inventory.team_id == team_id).order_by(Inventory.name)
+        )
+    )
 
 
-def get_inventory(session: Session, name: str, *, for_update: bool = False) -> Inventory:
-    query = select(Inventory).where(Inventory.name == name)
+def get_inventory(
+    session: Session, team_id: int, name: str, *, for_update: bool = False
+) -> Inventory:
+    """The team's inventory `name`; another team's is NotFound like a missing one."""
+    query = select(Inventory).where(Inventory.team_id == team_id, Inventory.name == name)
     if for_update:
         query = query.with_for_update()
     inventory = session.scalars(query).one_or_none()
@@ -102,12 +110,20 @@ def _write_rows(session: Session, inventory: Inventory, spec: InventorySpec) -> 
     session.flush()
 
 
-def create_inventory(session: Session, document: Document) -> Inventory:
-    """Store a new inventory at version 1; Conflict if the name is taken."""
+def _exists(session: Session, team_id: int, name: str) -> bool:
+    query = select(Inventory.id).where(Inventory.team_id == team_id, Inventory.name == name)
+    return session.scalars(query).first() is not None
+
+
+def create_inventory(
+    session: Session, team_id: int, document: Document, *, key_id: str | None = None
+) -> Inventory:
+    """Store a new inventory at version 1; Conflict if the team has one of that name."""
     spec = parse_inventory_document(_with_default_settings(document), version=1)
-    if session.scalars(select(Inventory.id).where(Inventory.name == spec.name)).first():
+    if _exists(session, team_id, spec.name):
         raise Conflict(f"inventory '{spec.name}' already exists")
     inventory = Inventory(
+        team_id=team_id,
         name=spec.name,
         version=1,
         review_threshold=spec.settings.review_threshold,
@@ -116,6 +132,7 @@ def create_inventory(session: Session, document: Document) -> Inventory:
     session.add(inventory)
     session.flush()
     _write_rows(session, inventory, spec)
+    record_audit(session, team_id, key_id, "inventory.create", spec.name, {"version": 1})
     return inventory
 
 
@@ -136,10 +153,15 @@ def version_document(session: Session, inventory: Inventory, version: int) -> Do
 
 
 def edit_inventory(
-    session: Session, name: str, change: Callable[[Document], None]
+    session: Session,
+    team_id: int,
+    name: str,
+    change: Callable[[Document], None],
+    *,
+    key_id: str | None = None,
 ) -> Inventory:
     """Apply `change` to the current document in place; validate; store a new version."""
-    inventory = get_inventory(session, name, for_update=True)
+    inventory = get_inventory(session, team_id, name, for_update=True)
     document = current_document(session, inventory)
     change(document)
     if document.get("name") != name:
@@ -147,10 +169,13 @@ def edit_inventory(
     spec = parse_inventory_document(document, version=inventory.version + 1)
     inventory.version = spec.version
     _write_rows(session, inventory, spec)
+    record_audit(session, team_id, key_id, "inventory.edit", name, {"version": spec.version})
     return inventory
 
 
-def replace_inventory(session: Session, name: str, document: Document) -> Inventory:
+def replace_inventory(
+    session: Session, team_id: int, name: str, document: Document, *, key_id: str | None = None
+) -> Inventory:
     """Replace the whole content of `name` with `document`, as a new version."""
 
     def change(current: Document) -> None:
@@ -159,28 +184,33 @@ def replace_inventory(session: Session, name: str, document: Document) -> Invent
         current.update(copy.deepcopy(document))
         current.setdefault("settings", kept_settings)
 
-    return edit_inventory(session, name, change)
+    return edit_inventory(session, team_id, name, change, key_id=key_id)
 
 
-def import_inventory_document(session: Session, data: Document) -> Inventory:
+def import_inventory_document(
+    session: Session, team_id: int, data: Document, *, key_id: str | None = None
+) -> Inventory:
     """Create the inventory, or replace its content as a new version if it exists."""
     name = data.get("name") if isinstance(data, dict) else None
-    if isinstance(name, str) and session.scalars(
-        select(Inventory.id).where(Inventory.name == name)
-    ).first():
-        return replace_inventory(session, name, data)
-    return create_inventory(session, data)
+    if isinstance(name, str) and _exists(session, team_id, name):
+        return replace_inventory(session, team_id, name, data, key_id=key_id)
+    return create_inventory(session, team_id, data, key_id=key_id)
 
 
-def delete_inventory(session: Session, name: str) -> None:
-    inventory = get_inventory(session, name, for_update=True)
+def delete_inventory(
+    session: Session, team_id: int, name: str, *, key_id: str | None = None
+) -> None:
+    inventory = get_inventory(session, team_id, name, for_update=True)
     session.delete(inventory)
     session.flush()
+    record_audit(session, team_id, key_id, "inventory.delete", name, {})
 
 
-def load_inventory_spec(session: Session, name: str, version: int | None = None) -> InventorySpec:
+def load_inventory_spec(
+    session: Session, team_id: int, name: str, version: int | None = None
+) -> InventorySpec:
     """The engine's view of an inventory at `version` (default: current)."""
-    inventory = get_inventory(session, name)
+    inventory = get_inventory(session, team_id, name)
     chosen = inventory.version if version is None else version
     return parse_inventory_document(version_document(session, inventory, chosen), version=chosen)
 
@@ -200,3 +230,11 @@ def find_sense(document: Document, sense_id: str) -> tuple[Document, Document]:
             if sense["id"] == sense_id:
                 return entry, sense
     raise NotFound(f"sense '{sense_id}' is not in inventory '{document['name']}'")
+
+
+def load_version_spec(session: Session, inventory_id: int, version: int) -> InventorySpec:
+    """The engine's view of inventory row `inventory_id` at `version` (a batch's pin)."""
+    inventory = session.get(Inventory, inventory_id)
+    if inventory is None:
+        raise NotFound(f"inventory {inventory_id} does not exist")
+    return parse_inventory_document(version_document(session, inventory, version), version=version)

@@ -15,6 +15,7 @@ from typing import Literal
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service.store.audit import record_audit
 from service.store.errors import NotFound
 from service.store.models import ApiKey, utcnow
 
@@ -31,6 +32,7 @@ class IssuedKey:
     token: str
     scope: Scope
     signing_secret: str
+    team_id: int
 
 
 def _hash(secret: str) -> str:
@@ -42,7 +44,8 @@ def grants(held: str, needed: Scope) -> bool:
     return held == needed or held == "admin"
 
 
-def create_key(session: Session, scope: Scope, label: str = "") -> IssuedKey:
+def create_key(session: Session, team_id: int, scope: Scope, label: str = "") -> IssuedKey:
+    """A new key of `team_id` (an operator action: no HTTP route calls this); audited."""
     if scope not in SCOPES:
         raise ValueError(f"scope must be one of {', '.join(SCOPES)}")
     key_id = secrets.token_hex(6)
@@ -51,6 +54,7 @@ def create_key(session: Session, scope: Scope, label: str = "") -> IssuedKey:
     session.add(
         ApiKey(
             key_id=key_id,
+            team_id=team_id,
             secret_hash=_hash(secret),
             scope=scope,
             label=label,
@@ -58,7 +62,8 @@ def create_key(session: Session, scope: Scope, label: str = "") -> IssuedKey:
         )
     )
     session.flush()
-    return IssuedKey(key_id, f"{PREFIX}_{key_id}_{secret}", scope, signing_secret)
+    record_audit(session, team_id, None, "key.create", key_id, {"scope": scope, "label": label})
+    return IssuedKey(key_id, f"{PREFIX}_{key_id}_{secret}", scope, signing_secret, team_id)
 
 
 def authenticate(session: Session, token: str) -> ApiKey | None:
@@ -74,14 +79,23 @@ def authenticate(session: Session, token: str) -> ApiKey | None:
     return key
 
 
-def list_keys(session: Session) -> list[ApiKey]:
-    return list(session.scalars(select(ApiKey).order_by(ApiKey.created_at)))
+def list_keys(session: Session, team_id: int | None = None) -> list[ApiKey]:
+    """Keys of one team, or of every team (the operator's view) when `team_id` is None."""
+    query = select(ApiKey)
+    if team_id is not None:
+        query = query.where(ApiKey.team_id == team_id)
+    return list(session.scalars(query.order_by(ApiKey.created_at, ApiKey.id)))
 
 
-def revoke_key(session: Session, key_id: str) -> ApiKey:
-    key = session.scalars(select(ApiKey).where(ApiKey.key_id == key_id)).one_or_none()
+def revoke_key(session: Session, key_id: str, *, team_id: int | None = None) -> ApiKey:
+    """Revoke a key (of `team_id` only, when given); audited in the key's team."""
+    query = select(ApiKey).where(ApiKey.key_id == key_id)
+    if team_id is not None:
+        query = query.where(ApiKey.team_id == team_id)
+    key = session.scalars(query).one_or_none()
     if key is None:
         raise NotFound(f"API key '{key_id}' does not exist")
     if key.revoked_at is None:
         key.revoked_at = utcnow()
+        record_audit(session, key.team_id, None, "key.revoke", key_id, {"scope": key.scope})
     return key

@@ -46,6 +46,7 @@ class Claim:
     token: str
     owner: str
     attempts: int
+    inventory_id: int
     inventory_name: str
     inventory_version: int
     evidence_watermark: int
@@ -78,6 +79,7 @@ def claim_chunk(session: Session, owner: str, lease_seconds: float) -> Claim | N
         token=chunk.lease_token,
         owner=owner,
         attempts=chunk.attempts,
+        inventory_id=batch.inventory_id,
         inventory_name=batch.inventory_name,
         inventory_version=batch.inventory_version,
         evidence_watermark=batch.evidence_watermark,

@@ -34,11 +34,39 @@ class Base(DeclarativeBase):
     pass
 
 
-class Inventory(Base):
-    __tablename__ = "inventories"
+class Team(Base):
+    """The owner of keys, inventories and batches; no key sees another team's rows."""
+
+    __tablename__ = "teams"
 
     id: Mapped[int] = mapped_column(primary_key=True)
     name: Mapped[str] = mapped_column(String(64), unique=True)
+    retention_days: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
+
+class AuditEvent(Base):
+    """Who (key id, or None for the operator's CLI) did what to which subject, and when."""
+
+    __tablename__ = "audit_events"
+    __table_args__ = (Index("ix_audit_events_team", "team_id", "id"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
+    key_id: Mapped[str | None] = mapped_column(String(32), nullable=True)
+    action: Mapped[str] = mapped_column(String(64))
+    subject: Mapped[str] = mapped_column(String(300))
+    detail: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
+
+class Inventory(Base):
+    __tablename__ = "inventories"
+    __table_args__ = (UniqueConstraint("team_id", "name", name="uq_inventories_team_name"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
+    name: Mapped[str] = mapped_column(String(64))
     description: Mapped[str] = mapped_column(Text, default="")
     version: Mapped[int] = mapped_column(Integer, default=1)
     review_threshold: Mapped[float] = mapped_column(Float)
@@ -148,6 +176,7 @@ class ApiKey(Base):
 
     id: Mapped[int] = mapped_column(primary_key=True)
     key_id: Mapped[str] = mapped_column(String(32), unique=True)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
     secret_hash: Mapped[str] = mapped_column(String(64))
     scope: Mapped[str] = mapped_column(String(16))
     label: Mapped[str] = mapped_column(String(200), default="")
@@ -177,9 +206,11 @@ class Batch(Base):
         UniqueConstraint("submitted_by", "idempotency_key"),
         Index("ix_batches_state_created", "state", "created_at"),
         Index("ix_batches_webhook_due", "webhook_state", "webhook_next_attempt_at"),
+        Index("ix_batches_team_created", "team_id", "created_at", "id"),
     )
 
     id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
     inventory_id: Mapped[int] = mapped_column(ForeignKey("inventories.id", ondelete="CASCADE"))
     inventory_name: Mapped[str] = mapped_column(String(64))
     inventory_version: Mapped[int] = mapped_column(Integer)
@@ -203,6 +234,10 @@ class Batch(Base):
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
     started_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
     finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+    # Set when the documents and results were deleted (retention or purge); the
+    # counts as they stood then stay readable.
+    purged_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+    kept_counts: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
 
 
 class BatchDocument(Base):
@@ -316,7 +351,7 @@ class ReviewItem(Base):
     )
 
     id: Mapped[int] = mapped_column(primary_key=True)
-    team_id: Mapped[int] = mapped_column(Integer)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
     result_id: Mapped[int] = mapped_column(
         BigInteger().with_variant(Integer(), "sqlite"),
         ForeignKey("batch_results.id", ondelete="CASCADE"),
@@ -349,7 +384,7 @@ class ReviewDecision(Base):
     )
 
     id: Mapped[int] = mapped_column(primary_key=True)
-    team_id: Mapped[int] = mapped_column(Integer)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
     item_id: Mapped[int] = mapped_column(ForeignKey("review_items.id", ondelete="CASCADE"))
     inventory_id: Mapped[int] = mapped_column(ForeignKey("inventories.id", ondelete="CASCADE"))
     inventory_version: Mapped[int] = mapped_column(Integer)
@@ -383,7 +418,7 @@ class WebSession(Base):
 
     id: Mapped[str] = mapped_column(String(64), primary_key=True)
     key_id: Mapped[str] = mapped_column(String(32))
-    team_id: Mapped[int] = mapped_column(Integer)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
     scope: Mapped[str] = mapped_column(String(16))
     csrf_token: Mapped[str] = mapped_column(String(64))
     skipped: Mapped[list[Any]] = mapped_column(JSON, default=list)

@@ -37,8 +37,8 @@ from service.engine import (
     OccurrenceFinder,
 )
 from service.store.evidence import load_evidence
-from service.store.inventories import get_inventory, load_inventory_spec
-from service.store.models import Inventory, InventoryVersion
+from service.store.inventories import load_version_spec
+from service.store.models import InventoryVersion
 
 log = logging.getLogger(__name__)
 
@@ -49,9 +49,10 @@ class EngineRetired(RuntimeError):
 
 @dataclass(frozen=True)
 class Pin:
-    """What a result depends on: an inventory version and the evidence up to a watermark."""
+    """What a result depends on: an inventory (row id: names are only unique per team)
+    at a version, and the evidence up to a watermark."""
 
-    inventory: str
+    inventory_id: int
     version: int
     watermark: int
 
@@ -100,23 +101,25 @@ class EngineCache:
                 self._encoders[model_dir] = encoder
             return encoder
 
-    def spec(self, session: Session, database_url: str, name: str, version: int) -> InventorySpec:
+    def spec(
+        self, session: Session, database_url: str, inventory_id: int, version: int
+    ) -> InventorySpec:
         """The inventory at `version`, parsed once: version snapshots never change (the
-        snapshot row's id and time tell a re-created inventory of the same name apart)."""
+        snapshot row's id and time tell a re-created inventory apart)."""
         row = session.execute(
-            select(InventoryVersion.id, InventoryVersion.created_at)
-            .join(Inventory, Inventory.id == InventoryVersion.inventory_id)
-            .where(Inventory.name == name, InventoryVersion.version == version)
+            select(InventoryVersion.id, InventoryVersion.created_at).where(
+                InventoryVersion.inventory_id == inventory_id, InventoryVersion.version == version
+            )
         ).one_or_none()
         if row is None:
-            return load_inventory_spec(session, name, version)  # raises NotFound
-        key = (database_url, name, version, row.id, row.created_at)
+            return load_version_spec(session, inventory_id, version)  # raises NotFound
+        key = (database_url, inventory_id, version, row.id, row.created_at)
         with self._lock:
             cached = self._specs.get(key)
             if cached is not None:
                 self._specs.move_to_end(key)
                 return cached
-        spec = load_inventory_spec(session, name, version)
+        spec = load_version_spec(session, inventory_id, version)
         with self._lock:
             self._specs[key] = spec
             while len(self._specs) > self.max_finders:
@@ -137,7 +140,7 @@ class EngineCache:
 
     def engine(self, session: Session, settings: Settings, pin: Pin) -> PinnedEngine:
         """The engine for `pin`, building or advancing one as needed (reads via `session`)."""
-        spec = self.spec(session, settings.database_url, pin.inventory, pin.version)
+        spec = self.spec(session, settings.database_url, pin.inventory_id, pin.version)
         encoder = self.encoder(resolve_model_dir(settings))
         base: _Base = (
             settings.database_url,
@@ -155,7 +158,7 @@ class EngineCache:
                 for (key, watermark), engine in self._engines.items()
                 if key == base and watermark < pin.watermark
             ]
-            inventory_id = get_inventory(session, pin.inventory).id
+            inventory_id = pin.inventory_id
             if older:
                 watermark, engine = max(older, key=lambda item: item[0])
                 added = load_evidence(session, inventory_id, after=watermark, until=pin.watermark)

@@ -35,9 +35,9 @@ def test_wrong_scope_is_403(client, api_keys, inventory_document):
     assert ok.status_code == 201
 
 
-def test_revoked_key_is_refused_and_secrets_are_stored_hashed(client, settings):
+def test_revoked_key_is_refused_and_secrets_are_stored_hashed(client, settings, team_id):
     with session_scope(settings) as session:
-        issued = create_key(session, "ingest", "pipeline")
+        issued = create_key(session, team_id, "ingest", "pipeline")
     assert client.get("/v1/inventories", headers=bearer(issued.token)).status_code == 200
     with session_scope(settings) as session:
         stored = session.query(ApiKey).filter_by(key_id=issued.key_id).one()

@@ -93,6 +93,7 @@ def test_engines_are_reused_and_advanced_when_evidence_grows(pipeline):
     with session_scope(pipeline.settings) as session:
         add_evidence(
             session,
+            pipeline.team_id,
             "tiny-shop",
             [
                 Evidence(
@@ -118,16 +119,18 @@ def test_a_batch_pinned_before_the_evidence_grew_keeps_its_watermark(pipeline):
     with session_scope(pipeline.settings) as session:
         add_evidence(
             session,
+            pipeline.team_id,
             "tiny-shop",
             [Evidence(0, "mouse", "mouse.device", "Click the mouse.", 10, 15, "import")],
         )
     pipeline.sync_results(documents(1))  # advances the cached engine to the new watermark
     with session_scope(pipeline.settings) as session:
-        grown = evidence_watermark(session, get_inventory(session, "tiny-shop").id)
-        newest = engines.engine(session, pipeline.settings, Pin("tiny-shop", 1, grown))
+        inventory_id = get_inventory(session, pipeline.team_id, "tiny-shop").id
+        grown = evidence_watermark(session, inventory_id)
+        newest = engines.engine(session, pipeline.settings, Pin(inventory_id, 1, grown))
         builds = engines.builds
         pinned = engines.engine(
-            session, pipeline.settings, Pin("tiny-shop", 1, batch["evidence_watermark"])
+            session, pipeline.settings, Pin(inventory_id, 1, batch["evidence_watermark"])
         )
     assert batch["evidence_watermark"] == 0 < grown
     assert engines.builds == builds + 1  # built afresh, not taken from the advanced engine

@@ -47,6 +47,7 @@ def test_batch_pins_inventory_version_and_evidence_watermark(pipeline):
     with session_scope(pipeline.settings) as session:
         add_evidence(
             session,
+            pipeline.team_id,
             "tiny-shop",
             [Evidence(0, "bass", "bass.fish", "We caught a bass.", 11, 15, "import")],
         )

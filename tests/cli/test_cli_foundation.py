@@ -47,10 +47,11 @@ def test_invalid_inventory_file_reports_pointer_and_fails(
 
 def test_keys_create_list_revoke(settings, capsys):
     assert main(["keys", "create", "--scope", "review", "--label", "night shift"]) == 0
-    out = capsys.readouterr().out
-    key_id = out.split("key id:")[1].split()[0]
+    captured = capsys.readouterr()
+    assert "created team 'default'" in captured.err  # an empty database gets one team
+    key_id = captured.out.split("key id:")[1].split()[0]
     assert main(["keys", "list"]) == 0
-    assert f"{key_id}\treview\tactive\tnight shift" in capsys.readouterr().out
+    assert f"{key_id}\tdefault\treview\tactive\tnight shift" in capsys.readouterr().out
     assert main(["keys", "revoke", key_id]) == 0
     main(["keys", "list"])
     assert "revoked" in capsys.readouterr().out
@@ -62,3 +63,28 @@ def test_db_current_reports_head(settings, capsys):
     from service.store.database import head_revision
 
     assert f"revision {head_revision()}" in capsys.readouterr().out
+
+
+def test_teams_and_keys_per_team(settings, capsys):
+    assert main(["teams", "create", "search-eu"]) == 0
+    assert main(["keys", "create", "--scope", "admin"]) == 0  # the only team: chosen, and said
+    assert "using team 'search-eu', the only team" in capsys.readouterr().err
+    assert main(["teams", "create", "search-us", "--retention-days", "30"]) == 0
+    assert main(["teams", "create", "search-us"]) == 2  # taken
+    assert main(["teams", "create", "Bad Name"]) == 2
+    capsys.readouterr()
+    assert main(["keys", "create", "--scope", "ingest"]) == 2  # two teams: name one
+    assert "several teams (search-eu, search-us)" in capsys.readouterr().err
+    assert main(["keys", "create", "--scope", "ingest", "--team", "search-us", "--quiet"]) == 0
+    token = capsys.readouterr().out.strip()
+    assert main(["keys", "create", "--scope", "ingest", "--team", "nosuch"]) == 2
+    capsys.readouterr()
+    assert main(["keys", "list", "--team", "search-us"]) == 0
+    listed = capsys.readouterr().out.splitlines()
+    assert len(listed) == 1 and listed[0].startswith(token.split("_")[1] + "\tsearch-us\tingest")
+    assert main(["teams", "list"]) == 0
+    out = capsys.readouterr().out
+    assert "search-eu\t1 keys\t0 inventories\t0 batches\tretention: kept" in out
+    assert "search-us\t1 keys\t0 inventories\t0 batches\tretention: 30 days" in out
+    assert main(["teams", "retention", "search-us", "none"]) == 0
+    assert "retention: none" in capsys.readouterr().out

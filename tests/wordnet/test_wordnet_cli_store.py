@@ -11,6 +11,7 @@ from service.config import Settings
 from service.store.database import session_scope
 from service.store.evidence import count_evidence
 from service.store.inventories import get_inventory, load_inventory_spec
+from service.store.teams import choose_team
 
 CORPUS = [
     {"doc": "d1", "sent": "1", "tokens": ["He", "caught", "a", "bass", "and", "a", "trout", "."],
@@ -25,12 +26,17 @@ CORPUS = [
 ]
 
 
+def only_team(session) -> int:  # type: ignore[no-untyped-def]
+    """The CLI made team `default` on the empty database."""
+    return choose_team(session, None)[0].id
+
+
 def test_wordnet_inventory_then_corpus_and_labeled_evidence(  # type: ignore[no-untyped-def]
     settings: Settings, tmp_path: Path, wordnet, capsys
 ) -> None:
     assert main(["inventory", "wordnet", "wn-bass", "--lemma", "bass", "--pos", "n"]) == 0
     with session_scope(settings) as session:
-        spec = load_inventory_spec(session, "wn-bass")
+        spec = load_inventory_spec(session, only_team(session), "wn-bass")
     assert [t.term for t in spec.terms] == ["bass"] and len(spec.terms[0].senses) == 8
 
     corpus = tmp_path / "tiny.jsonl.gz"
@@ -55,5 +61,5 @@ def test_wordnet_inventory_then_corpus_and_labeled_evidence(  # type: ignore[no-
     assert "stored 1 evidence items" in out.out
     assert "unknown sense for 'wn-bass'): 1" in out.err
     with session_scope(settings) as session:
-        counts = count_evidence(session, get_inventory(session, "wn-bass").id)
+        counts = count_evidence(session, get_inventory(session, only_team(session), "wn-bass").id)
     assert sum(counts.values()) == 2

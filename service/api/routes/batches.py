@@ -105,11 +105,18 @@ async def submit_batch(
     caller: Caller = Depends(ingest_key),
 ) -> JSONResponse:
     key = _check_idempotency_key(idempotency_key)
-    intake = Intake(request, session, settings, key_id=caller.key_id, idempotency_key=key)
+    intake = Intake(
+        request,
+        session,
+        settings,
+        key_id=caller.key_id,
+        team_id=caller.team_id,
+        idempotency_key=key,
+    )
     await intake.spool_for_single_writer()
     if key is not None:
         existing = await run_in_threadpool(
-            batches.find_by_idempotency_key, session, caller.key_id, key
+            batches.find_by_idempotency_key, session, caller.team_id, caller.key_id, key
         )
         if existing is not None:
             return await _replay(intake, session, existing)
@@ -118,7 +125,7 @@ async def submit_batch(
         await run_in_threadpool(session.commit)
     except IdempotencyClash:
         existing = await run_in_threadpool(
-            batches.find_by_idempotency_key, session, caller.key_id, key or ""
+            batches.find_by_idempotency_key, session, caller.team_id, caller.key_id, key or ""
         )
         if existing is None:
             raise ProblemError(
@@ -135,9 +142,9 @@ async def submit_batch(
 
 @router.get("/batches/{batch_id}", summary="State, counts, progress, timings, webhook attempts")
 def get_batch(
-    batch_id: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+    batch_id: str, session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> dict[str, Any]:
-    return _status(session, batches.get_batch(session, batch_id))
+    return _status(session, batches.get_batch(session, caller.team_id, batch_id))
 
 
 @router.delete(
@@ -145,9 +152,9 @@ def get_batch(
     summary="Cancel: chunks not yet done are not processed; results so far stay",
 )
 def cancel_batch(
-    batch_id: str, session: Session = Depends(get_session), _caller: Any = Depends(ingest_key)
+    batch_id: str, session: Session = Depends(get_session), caller: Caller = Depends(ingest_key)
 ) -> dict[str, Any]:
-    batch = batches.cancel_batch(session, batch_id, database_now(session))
+    batch = batches.cancel_batch(session, caller.team_id, batch_id, database_now(session))
     session.commit()
     return _status(session, batch)
 
@@ -203,23 +210,24 @@ def list_results(
     limit: int = Query(default=PAGE_DEFAULT, ge=1, le=PAGE_MAX),
     cursor: str | None = None,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(any_key),
+    caller: Caller = Depends(any_key),
 ) -> Response:
-    batches.get_batch(session, batch_id)
+    batch = batches.get_batch(session, caller.team_id, batch_id)
     chosen = batch_results.ResultFilter(status, term, sense, min_confidence, max_confidence)
     after = _cursor(cursor, 2)
     if _wants_ndjson(request):
+        session.expunge(batch)  # keep its loaded values: the pages read it in other sessions
         session.rollback()
 
         def page(s: Session, position: Any) -> tuple[list[Any], Any]:
             return batch_results.results_page(
-                s, batch_id, chosen, after=position, limit=STREAM_PAGE
+                s, batch, chosen, after=position, limit=STREAM_PAGE
             )
 
         return _stream(request.app.state.sessions, page, after)
     rows, following = batch_results.results_page(
         session,
-        batch_id,
+        batch,
         chosen,
         after=after,
         limit=limit,  # type: ignore[arg-type]
@@ -233,7 +241,7 @@ def list_results(
 
 
 def _tags(session: Session, batch: Batch) -> dict[str, list[str]]:
-    inventory = get_inventory(session, batch.inventory_name)
+    inventory = get_inventory(session, batch.team_id, batch.inventory_name)
     return batch_results.sense_tags(version_document(session, inventory, batch.inventory_version))
 
 
@@ -247,18 +255,19 @@ def list_summaries(
     limit: int = Query(default=PAGE_DEFAULT, ge=1, le=PAGE_MAX),
     cursor: str | None = None,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(any_key),
+    caller: Caller = Depends(any_key),
 ) -> Response:
-    batch = batches.get_batch(session, batch_id)
+    batch = batches.get_batch(session, caller.team_id, batch_id)
     tags = _tags(session, batch)
     after = _cursor(cursor, 1)
     start = after[0] if after is not None else None
 
     def page(s: Session, position: Any, size: int = STREAM_PAGE) -> tuple[list[Any], Any]:
-        documents, following = batch_results.documents_page(s, batch_id, after=position, limit=size)
+        documents, following = batch_results.documents_page(s, batch, after=position, limit=size)
         return batch_results.summaries(s, batch, documents, tags), following
 
     if _wants_ndjson(request):
+        session.expunge(batch)  # keep its loaded values: the pages read it in other sessions
         session.rollback()
         return _stream(request.app.state.sessions, page, start)
     rows, following = page(session, start, limit)
@@ -278,10 +287,10 @@ def document_summary(
     batch_id: str,
     document_id: str,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(any_key),
+    caller: Caller = Depends(any_key),
 ) -> dict[str, Any]:
-    batch = batches.get_batch(session, batch_id)
-    document = batch_results.find_document(session, batch_id, document_id)
+    batch = batches.get_batch(session, caller.team_id, batch_id)
+    document = batch_results.find_document(session, batch, document_id)
     return batch_results.summaries(session, batch, [document], _tags(session, batch))[0]
 
 
@@ -291,12 +300,12 @@ def list_failures(
     limit: int = Query(default=PAGE_DEFAULT, ge=1, le=PAGE_MAX),
     cursor: str | None = None,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(any_key),
+    caller: Caller = Depends(any_key),
 ) -> dict[str, Any]:
-    batches.get_batch(session, batch_id)
+    batch = batches.get_batch(session, caller.team_id, batch_id)
     after = _cursor(cursor, 1)
     documents, following = batch_results.documents_page(
-        session, batch_id, after=after[0] if after else None, limit=limit, state="failed"
+        session, batch, after=after[0] if after else None, limit=limit, state="failed"
     )
     return {
         "failures": [

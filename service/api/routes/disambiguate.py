@@ -82,14 +82,16 @@ def _parse(raw: bytes, settings: Settings) -> tuple[str, list[InputDocument], di
 def _tag(
     session: Session,
     settings: Settings,
+    team_id: int,
     inventory_name: str,
     documents: list[InputDocument],
     options: dict[str, Any],
 ) -> dict[str, Any]:
     engines = shared_engines()
-    inventory = get_inventory(session, inventory_name)
-    pin = Pin(inventory.name, inventory.version, evidence_watermark(session, inventory.id))
-    spec = engines.spec(session, settings.database_url, pin.inventory, pin.version)
+    inventory = get_inventory(session, team_id, inventory_name)
+    name = inventory.name
+    pin = Pin(inventory.id, inventory.version, evidence_watermark(session, inventory.id))
+    spec = engines.spec(session, settings.database_url, pin.inventory_id, pin.version)
     finder = engines.finder(settings.database_url, spec)
     limit = settings.max_occurrences_per_document
     for index, document in enumerate(documents):
@@ -113,7 +115,7 @@ def _tag(
         engine, [d.to_engine() for d in documents], rationale=bool(options["rationale"])
     )
     return {
-        "inventory": {"name": pin.inventory, "version": pin.version},
+        "inventory": {"name": name, "version": pin.version},
         "evidence_watermark": pin.watermark,
         "results": [occurrence.to_json() for result in tagged for occurrence in result.occurrences],
     }
@@ -128,8 +130,10 @@ async def disambiguate(
     request: Request,
     session: Session = Depends(get_session),
     settings: Settings = Depends(get_settings_dep),
-    _caller: Caller = Depends(ingest_key),
+    caller: Caller = Depends(ingest_key),
 ) -> dict[str, Any]:
     raw = await request.body()
     inventory, documents, options = _parse(raw, settings)
-    return await run_in_threadpool(_tag, session, settings, inventory, documents, options)
+    return await run_in_threadpool(
+        _tag, session, settings, caller.team_id, inventory, documents, options
+    )

@@ -8,7 +8,7 @@ from fastapi import APIRouter, Depends
 from pydantic import BaseModel, Field
 from sqlalchemy.orm import Session
 
-from service.api.deps import admin_key, any_key, get_session
+from service.api.deps import Caller, admin_key, any_key, get_session
 from service.api.problems import ProblemError
 from service.engine.types import Evidence, InventorySpec
 from service.store import evidence as evidence_repo
@@ -36,12 +36,13 @@ def add_evidence(
     name: str,
     body: EvidenceIn,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> dict[str, int]:
     """Add labeled occurrences; all or nothing (one bad item refuses the whole body)."""
-    _check_against_inventory(load_inventory_spec(session, name), body.occurrences)
+    _check_against_inventory(load_inventory_spec(session, caller.team_id, name), body.occurrences)
     added = evidence_repo.add_evidence(
         session,
+        caller.team_id,
         name,
         (
             Evidence(0, item.term, item.sense, item.text, item.start, item.end, "import")
@@ -86,10 +87,10 @@ def _check_against_inventory(spec: InventorySpec, items: list[LabeledOccurrenceI
 
 @router.get("/inventories/{name}/evidence")
 def count_evidence(
-    name: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+    name: str, session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> dict[str, Any]:
     """How much evidence each sense has, and the watermark a new batch would pin."""
-    inventory = get_inventory(session, name)
+    inventory = get_inventory(session, caller.team_id, name)
     return {
         "per_sense": evidence_repo.count_evidence(session, inventory.id),
         "watermark": evidence_repo.evidence_watermark(session, inventory.id),

@@ -14,7 +14,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.api.bodies import decode_json_object, decode_utf8
-from service.api.deps import admin_key, any_key, get_session
+from service.api.deps import Caller, admin_key, any_key, get_session
 from service.api.problems import ProblemError
 from service.api.schemas import (
     ExampleIn,
@@ -84,9 +84,10 @@ def get_inventory_schema() -> JSONResponse:
 
 @router.get("/inventories", response_model=list[InventorySummary])
 def list_inventories(
-    session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+    session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> list[InventorySummary]:
-    return [_summary(session, inventory) for inventory in repo.list_inventories(session)]
+    inventories = repo.list_inventories(session, caller.team_id)
+    return [_summary(session, inventory) for inventory in inventories]
 
 
 @router.post(
@@ -101,10 +102,10 @@ async def create_inventory(
     response: Response,
     name: str | None = None,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> InventorySummary:
     document = await _read_document(request, name)
-    inventory = repo.create_inventory(session, document)
+    inventory = repo.create_inventory(session, caller.team_id, document, key_id=caller.key_id)
     summary = _summary(session, inventory)
     session.commit()
     response.headers["Location"] = f"/v1/inventories/{inventory.name}"
@@ -113,9 +114,9 @@ async def create_inventory(
 
 @router.get("/inventories/{name}", response_model=InventorySummary)
 def get_inventory(
-    name: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+    name: str, session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> InventorySummary:
-    return _summary(session, repo.get_inventory(session, name))
+    return _summary(session, repo.get_inventory(session, caller.team_id, name))
 
 
 @router.patch("/inventories/{name}", response_model=InventorySummary)
@@ -123,7 +124,7 @@ def patch_inventory(
     name: str,
     patch: InventoryPatch,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> InventorySummary:
     def change(document: dict[str, Any]) -> None:
         if patch.description is not None:
@@ -131,7 +132,9 @@ def patch_inventory(
         if patch.settings is not None:
             document["settings"].update(patch.settings.model_dump(exclude_unset=True))
 
-    inventory = repo.edit_inventory(session, name, change)
+    inventory = repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     summary = _summary(session, inventory)
     session.commit()
     return summary
@@ -139,9 +142,9 @@ def patch_inventory(
 
 @router.delete("/inventories/{name}", status_code=204)
 def delete_inventory(
-    name: str, session: Session = Depends(get_session), _caller: Any = Depends(admin_key)
+    name: str, session: Session = Depends(get_session), caller: Caller = Depends(admin_key)
 ) -> Response:
-    repo.delete_inventory(session, name)
+    repo.delete_inventory(session, caller.team_id, name, key_id=caller.key_id)
     session.commit()
     return Response(status_code=204)
 
@@ -155,9 +158,9 @@ def export_inventory(
     request: Request,
     version: int | None = None,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(any_key),
+    caller: Caller = Depends(any_key),
 ) -> Response:
-    inventory = repo.get_inventory(session, name)
+    inventory = repo.get_inventory(session, caller.team_id, name)
     chosen = inventory.version if version is None else version
     return _export(repo.version_document(session, inventory, chosen), request)
 
@@ -172,13 +175,15 @@ async def replace_inventory(
     name: str,
     request: Request,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> InventorySummary:
     document = await _read_document(request, name)
     if document.get("name", name) != name:
         raise ProblemError(409, f"the document names '{document.get('name')}', not '{name}'")
     document["name"] = name
-    inventory = repo.replace_inventory(session, name, document)
+    inventory = repo.replace_inventory(
+        session, caller.team_id, name, document, key_id=caller.key_id
+    )
     summary = _summary(session, inventory)
     session.commit()
     return summary
@@ -186,9 +191,9 @@ async def replace_inventory(
 
 @router.get("/inventories/{name}/versions", response_model=list[VersionInfo])
 def list_versions(
-    name: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+    name: str, session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> list[VersionInfo]:
-    inventory = repo.get_inventory(session, name)
+    inventory = repo.get_inventory(session, caller.team_id, name)
     rows = session.execute(
         select(InventoryVersion.version, InventoryVersion.created_at)
         .where(InventoryVersion.inventory_id == inventory.id)
@@ -203,9 +208,9 @@ def get_version(
     version: int,
     request: Request,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(any_key),
+    caller: Caller = Depends(any_key),
 ) -> Response:
-    inventory = repo.get_inventory(session, name)
+    inventory = repo.get_inventory(session, caller.team_id, name)
     return _export(repo.version_document(session, inventory, version), request)
 
 
@@ -214,9 +219,10 @@ def get_version(
 
 @router.get("/inventories/{name}/terms")
 def list_terms(
-    name: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+    name: str, session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> list[dict[str, Any]]:
-    return repo.current_document(session, repo.get_inventory(session, name))["terms"]
+    inventory = repo.get_inventory(session, caller.team_id, name)
+    return repo.current_document(session, inventory)["terms"]
 
 
 @router.post("/inventories/{name}/terms", status_code=201)
@@ -224,18 +230,28 @@ def add_term(
     name: str,
     term: TermIn,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> dict[str, Any]:
-    repo.edit_inventory(session, name, lambda d: d["terms"].append(term.model_dump()))
+    repo.edit_inventory(
+        session,
+        caller.team_id,
+        name,
+        lambda d: d["terms"].append(term.model_dump()),
+        key_id=caller.key_id,
+    )
     session.commit()
     return term.model_dump()
 
 
 @router.get("/inventories/{name}/terms/{term}")
 def get_term(
-    name: str, term: str, session: Session = Depends(get_session), _caller: Any = Depends(any_key)
+    name: str,
+    term: str,
+    session: Session = Depends(get_session),
+    caller: Caller = Depends(any_key),
 ) -> dict[str, Any]:
-    return repo.find_term(repo.current_document(session, repo.get_inventory(session, name)), term)
+    inventory = repo.get_inventory(session, caller.team_id, name)
+    return repo.find_term(repo.current_document(session, inventory), term)
 
 
 @router.patch("/inventories/{name}/terms/{term}")
@@ -244,7 +260,7 @@ def patch_term(
     term: str,
     patch: TermPatch,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> dict[str, Any]:
     changed: dict[str, Any] = {}
 
@@ -253,19 +269,26 @@ def patch_term(
         entry.update(patch.model_dump(exclude_unset=True))
         changed.update(entry)
 
-    repo.edit_inventory(session, name, change)
+    repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     session.commit()
     return changed
 
 
 @router.delete("/inventories/{name}/terms/{term}", status_code=204)
 def delete_term(
-    name: str, term: str, session: Session = Depends(get_session), _caller: Any = Depends(admin_key)
+    name: str,
+    term: str,
+    session: Session = Depends(get_session),
+    caller: Caller = Depends(admin_key),
 ) -> Response:
     def change(document: dict[str, Any]) -> None:
         document["terms"].remove(repo.find_term(document, term))
 
-    repo.edit_inventory(session, name, change)
+    repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     session.commit()
     return Response(status_code=204)
 
@@ -279,12 +302,14 @@ def add_sense(
     term: str,
     sense: SenseIn,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> dict[str, Any]:
     def change(document: dict[str, Any]) -> None:
         repo.find_term(document, term)["senses"].append(sense.model_dump())
 
-    repo.edit_inventory(session, name, change)
+    repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     session.commit()
     return sense.model_dump()
 
@@ -294,9 +319,9 @@ def get_sense(
     name: str,
     sense_id: str,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(any_key),
+    caller: Caller = Depends(any_key),
 ) -> dict[str, Any]:
-    document = repo.current_document(session, repo.get_inventory(session, name))
+    document = repo.current_document(session, repo.get_inventory(session, caller.team_id, name))
     term, sense = repo.find_sense(document, sense_id)
     return {**sense, "term": term["term"]}
 
@@ -307,7 +332,7 @@ def patch_sense(
     sense_id: str,
     patch: SensePatch,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> dict[str, Any]:
     changed: dict[str, Any] = {}
 
@@ -316,7 +341,9 @@ def patch_sense(
         sense.update(patch.model_dump(exclude_unset=True))
         changed.update(sense)
 
-    repo.edit_inventory(session, name, change)
+    repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     session.commit()
     return changed
 
@@ -326,13 +353,15 @@ def delete_sense(
     name: str,
     sense_id: str,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> Response:
     def change(document: dict[str, Any]) -> None:
         term, sense = repo.find_sense(document, sense_id)
         term["senses"].remove(sense)
 
-    repo.edit_inventory(session, name, change)
+    repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     session.commit()
     return Response(status_code=204)
 
@@ -345,9 +374,9 @@ def list_examples(
     name: str,
     sense_id: str,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(any_key),
+    caller: Caller = Depends(any_key),
 ) -> list[ExampleOut]:
-    document = repo.current_document(session, repo.get_inventory(session, name))
+    document = repo.current_document(session, repo.get_inventory(session, caller.team_id, name))
     _, sense = repo.find_sense(document, sense_id)
     return [ExampleOut(index=i, text=t) for i, t in enumerate(sense.get("examples", []))]
 
@@ -360,7 +389,7 @@ def add_example(
     sense_id: str,
     example: ExampleIn,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> ExampleOut:
     position: list[int] = []
 
@@ -369,7 +398,9 @@ def add_example(
         sense.setdefault("examples", []).append(example.text)
         position.append(len(sense["examples"]) - 1)
 
-    repo.edit_inventory(session, name, change)
+    repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     session.commit()
     return ExampleOut(index=position[0], text=example.text)
 
@@ -386,14 +417,16 @@ def replace_example(
     index: int,
     example: ExampleIn,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> ExampleOut:
     def change(document: dict[str, Any]) -> None:
         _, sense = repo.find_sense(document, sense_id)
         _example_at(sense, index)
         sense["examples"][index] = example.text
 
-    repo.edit_inventory(session, name, change)
+    repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     session.commit()
     return ExampleOut(index=index, text=example.text)
 
@@ -404,13 +437,15 @@ def delete_example(
     sense_id: str,
     index: int,
     session: Session = Depends(get_session),
-    _caller: Any = Depends(admin_key),
+    caller: Caller = Depends(admin_key),
 ) -> Response:
     def change(document: dict[str, Any]) -> None:
         _, sense = repo.find_sense(document, sense_id)
         _example_at(sense, index)
         del sense["examples"][index]
 
-    repo.edit_inventory(session, name, change)
+    repo.edit_inventory(
+        session, caller.team_id, name, change, key_id=caller.key_id
+    )
     session.commit()
     return Response(status_code=204)
