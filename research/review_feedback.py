@@ -4,7 +4,7 @@ after 50 queue decisions simulated from gold labels, through the service's own c
 Labels are split by document as the demo does (hash of the document id): the even half is
 stored as evidence and the temperature fitted on it; the odd half is split again by
 document into a *pool* (its documents form the batch the reviewer works through) and a
-*test* half (never decided). The script:
+*test* part (never decided; a third by default). The script:
 
 1. submits the pool and test documents as two batches and lets a worker tag them;
 2. measures accuracy on the test labels and the test batch's queue share (review +
@@ -30,7 +30,6 @@ from pathlib import Path
 from typing import Any
 
 from fastapi.testclient import TestClient
-from service.store.teams import create_team
 from sqlalchemy import select
 
 from service.api.app import create_app
@@ -39,12 +38,13 @@ from service.config import Settings, resolve_model_dir
 from service.engine import DEFAULT_TEMPERATURE, PrototypeBook, calibrate_book
 from service.engine.types import Evidence
 from service.review.decisions import record_decision, rescore_term
-from service.review.queue import QueueFilter, claim_items, sync_queue
+from service.review.queue import QueueFilter, claim_items, set_auto_resolve, sync_queue
 from service.store import inventories
 from service.store.database import session_scope, upgrade
 from service.store.evidence import add_evidence, load_evidence
 from service.store.keys import create_key
 from service.store.models import BatchResult, ReviewItem
+from service.store.teams import create_team
 from service.tagging.engines import shared_engines
 from worker.loop import Worker
 
@@ -113,6 +113,14 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--decisions", type=int, default=50)
     parser.add_argument("--order", default="useful", choices=("useful", "confidence", "margin"))
+    parser.add_argument(
+        "--pool-share", type=float, default=2 / 3, help="share of held-out documents in the pool"
+    )
+    parser.add_argument(
+        "--no-auto-resolve",
+        action="store_true",
+        help="keep re-scored items in the queue (so the pool lasts for more decisions)",
+    )
     args = parser.parse_args()
     folder = Path(tempfile.mkdtemp(prefix="review-feedback-"))
     settings = Settings(database_url=f"sqlite:///{folder / 'feedback.db'}")
@@ -120,7 +128,9 @@ def main() -> None:
     docs = _documents()
     evidence, held_out = split_labels(CORPUS / "labeled.jsonl")
     held_docs = sorted({label["document_id"] for label in held_out})
-    pool_ids = {d for d in held_docs if hashlib.sha256(d.encode()).digest()[1] % 2 == 0}
+    pool_ids = {
+        d for d in held_docs if hashlib.sha256(d.encode()).digest()[1] < 256 * args.pool_share
+    }
     test_ids = set(held_docs) - pool_ids
     gold_pool = _gold([x for x in held_out if x["document_id"] in pool_ids], docs)
     gold_test = _gold([x for x in held_out if x["document_id"] in test_ids], docs)
@@ -138,6 +148,10 @@ def main() -> None:
             ),
         )
         keys = {s: create_key(session, team, s) for s in ("ingest", "review")}
+        if args.no_auto_resolve:
+            set_auto_resolve(
+                session, inventories.get_inventory(session, team, "lantern-lane").id, False
+            )
     with session_scope(settings) as session:
         spec = inventories.load_inventory_spec(session, team, "lantern-lane")
         inventory_id = inventories.get_inventory(session, team, "lantern-lane").id

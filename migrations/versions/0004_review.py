@@ -17,6 +17,15 @@ depends_on = None
 
 
 def upgrade() -> None:
+    with op.batch_alter_table("batches") as batch:
+        batch.add_column(
+            sa.Column(
+                "webhook_event",
+                sa.String(length=32),
+                nullable=False,
+                server_default="batch.finished",
+            )
+        )
     op.create_table(
         "review_items",
         sa.Column("id", sa.Integer(), nullable=False),
@@ -106,6 +115,8 @@ def upgrade() -> None:
 
 
 def downgrade() -> None:
+    with op.batch_alter_table("batches") as batch:
+        batch.drop_column("webhook_event")
     op.drop_table("web_secrets")
     op.drop_table("web_sessions")
     op.drop_table("review_settings")

@@ -53,6 +53,7 @@ from service.tagging.engines import Pin, shared_engines
 
 MACHINE_FIELDS = ("sense_id", "tags", "confidence", "margin", "status", "candidates")
 REVIEW_KEYS = ("machine_answer", "review", "rescored")
+REVIEWED_EVENT = "batch.reviewed"
 
 
 class DecisionInvalid(ValueError):
@@ -223,15 +224,15 @@ def record_decision(
 
 
 def announce_reviewed(session: Session, batch_id: str) -> None:
-    """Reviewed results are announced through the batch's webhook (when it has one and ended):
-    the delivery is made due again, and its body carries the current counts."""
+    """Announce reviewed results through the batch's webhook (`batch.reviewed`), once the
+    batch has ended and its own notice is not still waiting; the body is built when it is
+    sent, so one notice covers every decision made until then."""
     batch = session.get(Batch, batch_id)
-    if (
-        batch is not None
-        and batch.state in TERMINAL_BATCH_STATES
-        and batch.webhook_state != "pending"
-    ):
-        schedule_webhook(batch, database_now(session))
+    if batch is None or batch.state not in TERMINAL_BATCH_STATES:
+        return
+    if batch.webhook_state == "pending":
+        return
+    schedule_webhook(batch, database_now(session), event=REVIEWED_EVENT)
 
 
 def undo_last(session: Session, team_id: int, key_id: str) -> ReviewDecision:

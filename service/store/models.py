@@ -226,6 +226,9 @@ class Batch(Base):
     base_url: Mapped[str] = mapped_column(String(500), default="")
     callback_url: Mapped[str | None] = mapped_column(Text, nullable=True)
     webhook_state: Mapped[str] = mapped_column(String(16), default="none")
+    webhook_event: Mapped[str] = mapped_column(
+        String(32), default="batch.finished", server_default="batch.finished"
+    )
     webhook_attempts: Mapped[int] = mapped_column(Integer, default=0)
     webhook_next_attempt_at: Mapped[datetime | None] = mapped_column(
         DateTime(timezone=True), nullable=True

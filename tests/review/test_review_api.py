@@ -212,3 +212,26 @@ def test_review_routes_are_in_the_openapi_document(client):
     ):
         assert path in paths
     assert not [p for p in paths if p.startswith("/review")]
+
+
+def test_reviewed_results_are_announced_by_webhook(make_pipeline, receiver):
+    from tests.review.conftest import queue_documents
+
+    pipe = make_pipeline(allow_private_webhooks=True)
+    batch = pipe.submit(queue_documents()[:4], callback_url=receiver.url)
+    pipe.worker().run_until_idle()
+    _, first = receiver.requests.get(timeout=10)
+    assert json.loads(first)["event"] == "batch.finished"
+    key = pipe.keys["review"]
+    items = _claim(pipe.client, key, count=2)
+    for item in items:
+        response = pipe.client.post(
+            f"/v1/review/items/{item['id']}/decision", json={"sense_id": None}, headers=bearer(key)
+        )
+        assert response.status_code == 201
+    pipe.worker().run_until_idle()
+    _, second = receiver.requests.get(timeout=10)
+    body = json.loads(second)
+    assert body["event"] == "batch.reviewed" and body["batch_id"] == batch["id"]
+    assert body["counts"]["reviewed"] == 2
+    assert receiver.requests.empty()  # both decisions went out in one notice

@@ -149,6 +149,12 @@ def test_review_three_items_with_the_keyboard_then_undo(browser: Any, live: Live
     page.wait_for_url(decided_pages[-1].split("?")[0] + "*")
     assert _count(live.settings, ReviewDecision.undone_at.is_(None)) == 2
     assert _count(live.settings, ReviewDecision.undone_at.is_not(None)) == 1
+    # the item page now shows the nearest labeled evidence; the figures page draws its plots
+    assert page.locator(".nearest mark.occurrence").count() >= 1
+    page.screenshot(path=str(SHOTS / "item-with-evidence.png"), full_page=True)
+    page.goto(f"{live.base}/review/quality")
+    assert page.locator("svg.chart").count() == 2
+    page.screenshot(path=str(SHOTS / "quality.png"), full_page=True)
     page.context.close()
 
 
