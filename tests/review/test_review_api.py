@@ -209,6 +209,7 @@ def test_review_routes_are_in_the_openapi_document(client):
         "/v1/review/items/{item_id}/claim",
         "/v1/review/undo",
         "/v1/review/decisions",
+        "/v1/review/settings/{inventory}",
     ):
         assert path in paths
     assert not [p for p in paths if p.startswith("/review")]
@@ -235,3 +236,75 @@ def test_reviewed_results_are_announced_by_webhook(make_pipeline, receiver):
     assert body["event"] == "batch.reviewed" and body["batch_id"] == batch["id"]
     assert body["counts"]["reviewed"] == 2
     assert receiver.requests.empty()  # both decisions went out in one notice
+
+
+def test_auto_resolve_is_a_per_inventory_setting(queued):
+    client = queued.pipeline.client
+    admin, review = bearer(queued.keys["admin"]), bearer(queued.keys["review"])
+    assert client.get("/v1/review/settings/tiny-shop", headers=review).json()["auto_resolve"]
+    refused = client.put(
+        "/v1/review/settings/tiny-shop", json={"auto_resolve": False}, headers=review
+    )
+    assert refused.status_code == 403
+    changed = client.put(
+        "/v1/review/settings/tiny-shop", json={"auto_resolve": False}, headers=admin
+    )
+    assert changed.status_code == 200 and changed.json() == {
+        "inventory": "tiny-shop",
+        "auto_resolve": False,
+    }
+    assert (
+        client.put(
+            "/v1/review/settings/nope", json={"auto_resolve": True}, headers=admin
+        ).status_code
+        == 404
+    )
+    assert client.put("/v1/review/settings/tiny-shop", json={}, headers=admin).status_code == 422
+
+
+def _lower_threshold(client, admin, value):
+    response = client.patch(
+        "/v1/inventories/tiny-shop", json={"settings": {"review_threshold": value}}, headers=admin
+    )
+    assert response.status_code == 200, response.text
+
+
+def test_items_made_confident_leave_the_queue_and_come_back_on_undo(queued):
+    client = queued.pipeline.client
+    admin, key = bearer(queued.keys["admin"]), queued.keys["review"]
+    first = _claim(client, key, term="bass")[0]
+    _lower_threshold(client, admin, 0.5)  # the re-scoring now judges against 0.5
+    response = client.post(
+        f"/v1/review/items/{first['id']}/decision",
+        json={"sense_id": gold_sense(_text(queued, first), "bass")},
+        headers=bearer(key),
+    )
+    resolved = response.json()["resolved"]
+    assert resolved, "no item left the queue"
+    with session_scope(queued.pipeline.settings) as session:
+        for item_id in resolved:
+            item = session.get(ReviewItem, item_id)
+            assert item.state == "resolved" and item.confidence >= 0.5
+    results = queued.pipeline.all_results(queued.batch_id)
+    rescored = [r for r in results if r.get("rescored")]
+    assert len(rescored) == len(resolved)
+    assert all(r["status"] == "assigned" and "machine_answer" in r for r in rescored)
+    assert client.post("/v1/review/undo", headers=bearer(key)).status_code == 200
+    with session_scope(queued.pipeline.settings) as session:
+        assert {session.get(ReviewItem, i).state for i in resolved} == {"pending"}
+    assert not [r for r in queued.pipeline.all_results(queued.batch_id) if r.get("rescored")]
+
+
+def test_with_auto_resolve_off_items_stay_in_the_queue(queued):
+    client = queued.pipeline.client
+    admin, key = bearer(queued.keys["admin"]), queued.keys["review"]
+    client.put("/v1/review/settings/tiny-shop", json={"auto_resolve": False}, headers=admin)
+    first = _claim(client, key, term="bass")[0]
+    _lower_threshold(client, admin, 0.5)
+    response = client.post(
+        f"/v1/review/items/{first['id']}/decision",
+        json={"sense_id": gold_sense(_text(queued, first), "bass")},
+        headers=bearer(key),
+    )
+    assert response.status_code == 201
+    assert response.json()["resolved"] == [] and response.json()["rescored"] > 0

@@ -10,7 +10,7 @@ from fastapi import APIRouter, Depends, Query, Request, Response
 from pydantic import BaseModel, Field
 from sqlalchemy.orm import Session
 
-from service.api.deps import Caller, get_session, get_settings_dep, review_key
+from service.api.deps import Caller, admin_key, get_session, get_settings_dep, review_key
 from service.api.problems import ProblemError
 from service.config import Settings
 from service.review import decisions as review_decisions
@@ -18,12 +18,16 @@ from service.review.queue import (
     CLAIM_SECONDS,
     MAX_CLAIM,
     QueueFilter,
+    auto_resolve,
     claim_items,
     get_item,
     release_claim,
+    set_auto_resolve,
     sync_queue,
 )
 from service.review.views import item_json
+from service.store.audit import record_audit
+from service.store.inventories import get_inventory
 from service.store.models import Inventory
 
 router = APIRouter(prefix="/v1/review", tags=["review"])
@@ -208,3 +212,46 @@ def decisions(
         "decisions": [review_decisions.decision_json(d, name) for d, name in page],
         "next_after": page[-1][0].id if len(page) == limit else None,
     }
+
+
+class QueueSettingsIn(BaseModel):
+    """Whether items a decision makes confident leave the queue on their own."""
+
+    auto_resolve: bool
+
+
+@router.get(
+    "/settings/{inventory}", responses={**_PROBLEMS, 404: {"description": "no such inventory"}}
+)
+def read_queue_settings(
+    inventory: str,
+    session: Session = Depends(get_session),
+    caller: Caller = Depends(review_key),
+) -> dict[str, Any]:
+    """The inventory's queue settings."""
+    found = get_inventory(session, caller.team_id, inventory)
+    return {"inventory": found.name, "auto_resolve": auto_resolve(session, found.id)}
+
+
+@router.put(
+    "/settings/{inventory}", responses={**_PROBLEMS, 404: {"description": "no such inventory"}}
+)
+def write_queue_settings(
+    inventory: str,
+    body: QueueSettingsIn,
+    session: Session = Depends(get_session),
+    caller: Caller = Depends(admin_key),
+) -> dict[str, Any]:
+    """Change the inventory's queue settings (admin)."""
+    found = get_inventory(session, caller.team_id, inventory)
+    set_auto_resolve(session, found.id, body.auto_resolve)
+    record_audit(
+        session,
+        caller.team_id,
+        caller.key_id,
+        "review.settings",
+        found.name,
+        {"auto_resolve": body.auto_resolve},
+    )
+    session.commit()
+    return {"inventory": found.name, "auto_resolve": body.auto_resolve}
