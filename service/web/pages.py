@@ -12,6 +12,7 @@ from __future__ import annotations
 import hmac
 import secrets
 import time
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 from urllib.parse import parse_qs, urlencode
@@ -114,8 +115,24 @@ def _refused(request: Request) -> Response:
     )
 
 
-def _checked(request: Request, who: sessions.Reviewer, fields: dict[str, str]) -> Response | None:
-    return None if sessions.csrf_ok(who, fields.get("csrf")) else _refused(request)
+class FormRefused(Exception):
+    """A form post without the session's CSRF token: 403 before anything is read or written."""
+
+
+@dataclass(frozen=True)
+class Posted:
+    """A form post of a signed-in reviewer whose CSRF token matched."""
+
+    fields: dict[str, str]
+    who: sessions.Reviewer
+
+
+def posted(
+    fields: dict[str, str] = Depends(form), who: sessions.Reviewer = Depends(reviewer)
+) -> Posted:
+    if not sessions.csrf_ok(who, fields.get("csrf")):
+        raise FormRefused()
+    return Posted(fields, who)
 
 
 def _filter_from(values: dict[str, str] | Any) -> tuple[QueueFilter, Order]:
@@ -202,12 +219,10 @@ def sign_in(
 @router.post("/sign-out")
 def sign_out(
     request: Request,
-    fields: dict[str, str] = Depends(form),
+    post: Posted = Depends(posted),
     session: Session = Depends(get_session),
-    who: sessions.Reviewer = Depends(reviewer),
 ) -> Response:
-    if (refused := _checked(request, who, fields)) is not None:
-        return refused
+    who = post.who
     sessions.end_session(session, who.session_id)
     session.commit()
     response = _see_other("/review/sign-in")
@@ -307,13 +322,11 @@ def _next_item(
 @router.post("/next")
 def next_item(
     request: Request,
-    fields: dict[str, str] = Depends(form),
+    post: Posted = Depends(posted),
     session: Session = Depends(get_session),
     settings: Settings = Depends(get_settings_dep),
-    who: sessions.Reviewer = Depends(reviewer),
 ) -> Response:
-    if (refused := _checked(request, who, fields)) is not None:
-        return refused
+    fields, who = post.fields, post.who
     sync_queue(session, settings, who.team_id)
     sessions.forget_skips(session, who.session_id)
     session.commit()
@@ -375,13 +388,11 @@ def item_page(
 def decide(
     item_id: int,
     request: Request,
-    fields: dict[str, str] = Depends(form),
+    post: Posted = Depends(posted),
     session: Session = Depends(get_session),
     settings: Settings = Depends(get_settings_dep),
-    who: sessions.Reviewer = Depends(reviewer),
 ) -> Response:
-    if (refused := _checked(request, who, fields)) is not None:
-        return refused
+    fields, who = post.fields, post.who
     choice = fields.get("sense", "")
     chosen, order = _filter_from(fields)
     try:
@@ -410,12 +421,10 @@ def decide(
 def skip(
     item_id: int,
     request: Request,
-    fields: dict[str, str] = Depends(form),
+    post: Posted = Depends(posted),
     session: Session = Depends(get_session),
-    who: sessions.Reviewer = Depends(reviewer),
 ) -> Response:
-    if (refused := _checked(request, who, fields)) is not None:
-        return refused
+    fields, who = post.fields, post.who
     try:
         item = get_item(session, who.team_id, item_id)
     except NotFound as exc:
@@ -430,13 +439,11 @@ def skip(
 @router.post("/undo")
 def undo(
     request: Request,
-    fields: dict[str, str] = Depends(form),
+    post: Posted = Depends(posted),
     session: Session = Depends(get_session),
     settings: Settings = Depends(get_settings_dep),
-    who: sessions.Reviewer = Depends(reviewer),
 ) -> Response:
-    if (refused := _checked(request, who, fields)) is not None:
-        return refused
+    fields, who = post.fields, post.who
     chosen, order = _filter_from(fields)
     try:
         outcome = run_undo(session, settings, who.team_id, who.key_id)
@@ -514,13 +521,11 @@ def senses_page(
 @router.post("/senses")
 def create_sense(
     request: Request,
-    fields: dict[str, str] = Depends(form),
+    post: Posted = Depends(posted),
     session: Session = Depends(get_session),
     settings: Settings = Depends(get_settings_dep),
-    who: sessions.Reviewer = Depends(reviewer),
 ) -> Response:
-    if (refused := _checked(request, who, fields)) is not None:
-        return refused
+    fields, who = post.fields, post.who
     if not grants(who.scope, "admin"):
         return _html(
             request,
@@ -604,6 +609,10 @@ def install(app: FastAPI) -> None:
     """Add the pages, their assets and the sign-in redirect to the API's app."""
     app.include_router(router)
     app.mount("/review/assets", StaticFiles(directory=str(HERE / "static")), name="review-assets")
+
+    @app.exception_handler(FormRefused)
+    async def _form_refused(request: Request, exc: FormRefused) -> Response:
+        return _refused(request)
 
     @app.exception_handler(SignInRequired)
     async def _sign_in(request: Request, exc: SignInRequired) -> Response:
