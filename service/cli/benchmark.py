@@ -29,70 +29,101 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     wordnet.add_argument("--train", type=Path, required=True, help="training corpus (.jsonl.gz)")
     wordnet.add_argument("--test", type=Path, required=True, help="test corpus (.jsonl.gz)")
     wordnet.add_argument("--limit", type=int, metavar="N", help="score the first N test instances")
-    wordnet.add_argument("--train-limit", type=int, metavar="N",
-                         help="use the first N training sentences")
-    wordnet.add_argument("--json", action="store_true",
-                         help="end with one line holding every figure as a JSON object")
-    wordnet.add_argument("--layers", default=",".join(map(str, DEFAULTS.layers)),
-                         help="hidden layers to pool, e.g. 6 or 3,4,5,6 (default %(default)s)")
-    wordnet.add_argument("--gloss-template", choices=sorted(GLOSS_TEMPLATES),
-                         default=DEFAULT_GLOSS_TEMPLATE)
-    wordnet.add_argument("--evidence-prior", type=float, default=DEFAULTS.recipe.evidence_prior,
-                         help="k in the corpus weight n/(n+k) of a sense seen n times "
-                         "(default %(default)s)")
-    wordnet.add_argument("--prior-weight", type=float, default=DEFAULTS.recipe.prior_weight,
-                         help="weight of the log sense-frequency prior (default %(default)s)")
-    wordnet.add_argument("--fallback", choices=("relations", "gloss"),
-                         default=DEFAULTS.recipe.fallback,
-                         help="what stands in for senses the training file never shows "
-                         "(default %(default)s)")
+    wordnet.add_argument(
+        "--train-limit", type=int, metavar="N", help="use the first N training sentences"
+    )
+    wordnet.add_argument(
+        "--json",
+        action="store_true",
+        help="end with one line holding every figure as a JSON object",
+    )
+    wordnet.add_argument(
+        "--layers",
+        default=",".join(map(str, DEFAULTS.layers)),
+        help="hidden layers to pool, e.g. 6 or 3,4,5,6 (default %(default)s)",
+    )
+    wordnet.add_argument(
+        "--gloss-template", choices=sorted(GLOSS_TEMPLATES), default=DEFAULT_GLOSS_TEMPLATE
+    )
+    wordnet.add_argument(
+        "--evidence-prior",
+        type=float,
+        default=DEFAULTS.recipe.evidence_prior,
+        help="k in the corpus weight n/(n+k) of a sense seen n times (default %(default)s)",
+    )
+    wordnet.add_argument(
+        "--prior-weight",
+        type=float,
+        default=DEFAULTS.recipe.prior_weight,
+        help="weight of the log sense-frequency prior (default %(default)s)",
+    )
+    wordnet.add_argument(
+        "--fallback",
+        choices=("relations", "gloss"),
+        default=DEFAULTS.recipe.fallback,
+        help="what stands in for senses the training file never shows (default %(default)s)",
+    )
     wordnet.add_argument("--no-cache", action="store_true", help="do not read or write the cache")
-    wordnet.add_argument("--no-variants", action="store_true",
-                         help="skip the simpler recipes scored for comparison")
+    wordnet.add_argument(
+        "--no-variants", action="store_true", help="skip the simpler recipes scored for comparison"
+    )
     wordnet.set_defaults(func=run)
 
 
 def _config(args: argparse.Namespace) -> BenchmarkConfig:
     layers = tuple(int(part) for part in str(args.layers).split(",") if part.strip())
-    recipe = PrototypeRecipe(evidence_prior=args.evidence_prior,
-                             prior_weight=args.prior_weight, fallback=args.fallback)
+    recipe = PrototypeRecipe(
+        evidence_prior=args.evidence_prior, prior_weight=args.prior_weight, fallback=args.fallback
+    )
     return BenchmarkConfig(layers=layers, gloss_template=args.gloss_template, recipe=recipe)
 
 
 def format_table(result: dict[str, Any]) -> str:
     """The human-readable summary printed before the JSON line."""
     lines = [
-        f"test {result['test_file']} ({result['n']} instances), "
-        f"train {result['train_file']}",
+        f"test {result['test_file']} ({result['n']} instances), train {result['train_file']}",
         f"{'':24}{'F1':>8}",
         f"{'whichsense':24}{result['f1']:8.2f}",
         f"{'MFS in training file':24}{result['mfs_f1']:8.2f}",
         f"{'WordNet first sense':24}{result['first_sense_f1']:8.2f}",
-        "per part of speech (ours / MFS, n): " + ", ".join(
+        "per part of speech (ours / MFS, n): "
+        + ", ".join(
             f"{pos} {f1:.2f} / {result['mfs_per_pos'].get(pos, 0.0):.2f} "
-            f"({result['per_pos_n'][pos]})" for pos, f1 in result["per_pos"].items()),
+            f"({result['per_pos_n'][pos]})"
+            for pos, f1 in result["per_pos"].items()
+        ),
         f"coverage {result['coverage']:.4f}; temperature {result['temperature']:.4f} "
         f"(fitted on {result['calibration_instances']} held-out training instances, "
         f"F1 there {result['held_out_f1']:.2f}); ECE {result['ece']} "
         f"(at the engine's default temperature: {result['ece_at_default_temperature']})",
     ]
     for target, point in result["auto_share_at"].items():
-        share = (f"{point['share']:.1%} assigned automatically (threshold "
-                 f"{point['threshold']:.3f})") if point else "not reachable"
+        share = (
+            (f"{point['share']:.1%} assigned automatically (threshold {point['threshold']:.3f})")
+            if point
+            else "not reachable"
+        )
         lines.append(f"at {float(target):.0%} accuracy: {share}")
     for target, point in result["held_out_thresholds_on_test"].items():
         if point:
-            lines.append(f"threshold reaching {float(target):.0%} on held-out training documents "
-                         f"({point['threshold']:.3f}) on the test set: {point['share']:.1%} "
-                         f"assigned, accuracy {point['accuracy']:.3f}")
+            lines.append(
+                f"threshold reaching {float(target):.0%} on held-out training documents "
+                f"({point['threshold']:.3f}) on the test set: {point['share']:.1%} "
+                f"assigned, accuracy {point['accuracy']:.3f}"
+            )
     for name, f1 in result.get("variants", {}).items():
         lines.append(f"  variant {name:40} {f1:6.2f}")
     stats = result["train_stats"]
-    lines.append(f"training labels not resolvable in this WordNet: "
-                 f"{stats['skipped_unresolved']} instances skipped "
-                 f"({stats['recovered_by_splitting']} more recovered by splitting packed keys)")
-    lines.append("timings (s): " + ", ".join(f"{k} {v}" for k, v in result["timings"].items())
-                 + f"; total {result['seconds']}")
+    lines.append(
+        f"training labels not resolvable in this WordNet: "
+        f"{stats['skipped_unresolved']} instances skipped "
+        f"({stats['recovered_by_splitting']} more recovered by splitting packed keys)"
+    )
+    lines.append(
+        "timings (s): "
+        + ", ".join(f"{k} {v}" for k, v in result["timings"].items())
+        + f"; total {result['seconds']}"
+    )
     return "\n".join(lines)
 
 
@@ -106,11 +137,18 @@ def run(args: argparse.Namespace) -> int:
             print(f"whichsense: no such file: {path}", file=sys.stderr)
             return 2
     config = _config(args)
-    encoder = ContextEncoder(resolve_model_dir(get_settings()), layers=config.layers,
-                             batch_size=config.batch_size)
+    encoder = ContextEncoder(
+        resolve_model_dir(get_settings()), layers=config.layers, batch_size=config.batch_size
+    )
     result = run_benchmark(
-        args.train, args.test, config, reader=open_wordnet(), encoder=encoder,
-        limit=args.limit, train_limit=args.train_limit, use_cache=not args.no_cache,
+        args.train,
+        args.test,
+        config,
+        reader=open_wordnet(),
+        encoder=encoder,
+        limit=args.limit,
+        train_limit=args.train_limit,
+        use_cache=not args.no_cache,
         variants=not args.no_variants,
         log=lambda message: print(message, file=sys.stderr, flush=True),
     )

@@ -26,14 +26,31 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
         "the target accuracy.",
     )
     parser.add_argument("labeled", type=Path, help="labeled occurrences (JSON Lines)")
-    parser.add_argument("--inventory", required=True, metavar="NAME_OR_FILE",
-                        help="an inventory document (.json) or the name of a stored inventory")
-    parser.add_argument("-o", "--output", type=Path, required=True, metavar="DIR",
-                        help="folder for summary.json and report.html")
-    parser.add_argument("--target-accuracy", type=float, default=0.9,
-                        help="accuracy the review threshold must reach (default 0.9)")
-    parser.add_argument("--no-evidence", action="store_true",
-                        help="ignore a stored inventory's evidence (glosses and examples only)")
+    parser.add_argument(
+        "--inventory",
+        required=True,
+        metavar="NAME_OR_FILE",
+        help="an inventory document (.json) or the name of a stored inventory",
+    )
+    parser.add_argument(
+        "-o",
+        "--output",
+        type=Path,
+        required=True,
+        metavar="DIR",
+        help="folder for summary.json and report.html",
+    )
+    parser.add_argument(
+        "--target-accuracy",
+        type=float,
+        default=0.9,
+        help="accuracy the review threshold must reach (default 0.9)",
+    )
+    parser.add_argument(
+        "--no-evidence",
+        action="store_true",
+        help="ignore a stored inventory's evidence (glosses and examples only)",
+    )
     parser.add_argument("--limit", type=int, metavar="N", help="evaluate the first N only")
     add_team_option(parser)
     parser.set_defaults(func=run)
@@ -55,8 +72,11 @@ def load_inventory(
     with session_scope() as session:
         chosen = team_id(session, team)
         spec = load_inventory_spec(session, chosen, reference)
-        evidence = load_evidence(session, get_inventory(session, chosen, reference).id) if (
-            with_evidence) else []
+        evidence = (
+            load_evidence(session, get_inventory(session, chosen, reference).id)
+            if (with_evidence)
+            else []
+        )
     return spec, evidence, "database"
 
 
@@ -64,8 +84,9 @@ def match_terms(
     items: list[LabeledOccurrence], spec: InventorySpec, skipped: Counter[str]
 ) -> list[tuple[LabeledOccurrence, str]]:
     """Labeled items paired with the inventory's spelling of their term; others counted."""
-    terms = {fold(surface): term.term for term in spec.terms
-             for surface in (term.term, *term.aliases)}
+    terms = {
+        fold(surface): term.term for term in spec.terms for surface in (term.term, *term.aliases)
+    }
     matched = []
     for item in items:
         term = terms.get(fold(item.term))
@@ -83,8 +104,9 @@ def without_labeled_items(
     held_out = {(item.text, item.start, item.end) for item in items}
     kept = [e for e in evidence if (e.text, e.start, e.end) not in held_out]
     if len(kept) < len(evidence):
-        skipped["stored evidence left out because it is an evaluated item"] = (
-            len(evidence) - len(kept))
+        skipped["stored evidence left out because it is an evaluated item"] = len(evidence) - len(
+            kept
+        )
     return kept
 
 
@@ -105,15 +127,23 @@ def run(args: argparse.Namespace) -> int:
     evidence = without_labeled_items(evidence, items, skipped)
     encoder = ContextEncoder(resolve_model_dir(get_settings()))
     disambiguator = Disambiguator(encoder, spec, evidence)
-    queries = [SpanQuery(item.text, item.start, item.end, term, document_id=item.occurrence_id)
-               for item, term in matched]
+    queries = [
+        SpanQuery(item.text, item.start, item.end, term, document_id=item.occurrence_id)
+        for item, term in matched
+    ]
     results = disambiguator.classify_spans(queries)
     outcomes = [
         Outcome(
-            occurrence_id=item.occurrence_id, term=term, gold=item.sense,
-            best=result.candidates[0].sense_id, served=result.sense_id,
-            confidence=float(result.confidence), status=result.status,
-            text=item.text, start=item.start, end=item.end,
+            occurrence_id=item.occurrence_id,
+            term=term,
+            gold=item.sense,
+            best=result.candidates[0].sense_id,
+            served=result.sense_id,
+            confidence=float(result.confidence),
+            status=result.status,
+            text=item.text,
+            start=item.start,
+            end=item.end,
         )
         for (item, term), result in zip(matched, results, strict=True)
     ]
@@ -131,11 +161,15 @@ def run(args: argparse.Namespace) -> int:
     }
     summary_path, html_path = write_report(args.output, summary, outcomes, meta)
     chosen = summary["threshold_for_target"]
-    print(f"accuracy {summary['accuracy']:.3f}  F1 (abstentions unanswered) "
-          f"{summary['served']['f1']:.3f}  ECE {summary['ece']:.3f}  n={summary['n']}")
+    print(
+        f"accuracy {summary['accuracy']:.3f}  F1 (abstentions unanswered) "
+        f"{summary['served']['f1']:.3f}  ECE {summary['ece']:.3f}  n={summary['n']}"
+    )
     if chosen:
-        print(f"review threshold {chosen['threshold']:.3f} reaches {args.target_accuracy:.0%}: "
-              f"{chosen['coverage']:.1%} assigned automatically")
+        print(
+            f"review threshold {chosen['threshold']:.3f} reaches {args.target_accuracy:.0%}: "
+            f"{chosen['coverage']:.1%} assigned automatically"
+        )
     else:
         print(f"no review threshold reaches {args.target_accuracy:.0%} accuracy")
     print(f"wrote {summary_path} and {html_path}")

@@ -22,16 +22,31 @@ def add_wordnet_parser(actions: argparse._SubParsersAction) -> None:
         "imported into the database (as a new version if NAME exists).",
     )
     parser.add_argument("name", help="inventory name")
-    parser.add_argument("--lemma", action="append", default=[], metavar="LEMMA",
-                        help="a lemma to include (repeatable); multi-word lemmas as 'sea bass'")
-    parser.add_argument("--lemmas-from", type=Path, metavar="FILE",
-                        help="a file with one lemma per line ('#' starts a comment)")
+    parser.add_argument(
+        "--lemma",
+        action="append",
+        default=[],
+        metavar="LEMMA",
+        help="a lemma to include (repeatable); multi-word lemmas as 'sea bass'",
+    )
+    parser.add_argument(
+        "--lemmas-from",
+        type=Path,
+        metavar="FILE",
+        help="a file with one lemma per line ('#' starts a comment)",
+    )
     parser.add_argument("--all", action="store_true", help="every lemma in WordNet (large)")
-    parser.add_argument("--pos", choices=("n", "v", "a", "r"),
-                        help="keep only senses of this part of speech")
+    parser.add_argument(
+        "--pos", choices=("n", "v", "a", "r"), help="keep only senses of this part of speech"
+    )
     parser.add_argument("--description", default="", help="inventory description")
-    parser.add_argument("-o", "--output", type=Path, metavar="FILE.json",
-                        help="write the inventory document here instead of importing it")
+    parser.add_argument(
+        "-o",
+        "--output",
+        type=Path,
+        metavar="FILE.json",
+        help="write the inventory document here instead of importing it",
+    )
     add_team_option(parser)
     parser.set_defaults(func=run_wordnet)
 
@@ -77,6 +92,8 @@ def run_wordnet(args: argparse.Namespace) -> int:
 
     with session_scope() as session:
         inventory = import_inventory_document(session, team_id(session, args.team), document)
-        print(f"inventory '{inventory.name}' is now at version {inventory.version} "
-              f"({len(spec.terms)} terms, {senses} senses)")
+        print(
+            f"inventory '{inventory.name}' is now at version {inventory.version} "
+            f"({len(spec.terms)} terms, {senses} senses)"
+        )
     return 0

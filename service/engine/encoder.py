@@ -287,9 +287,7 @@ class ContextEncoder:
                     if len(tokens) == 0:  # span had no sub-words: read the whole window
                         tokens = np.flatnonzero(~special)
                     if by_layer:
-                        stacked = torch.stack(
-                            [layer[row, tokens].mean(dim=0) for layer in pooled]
-                        )
+                        stacked = torch.stack([layer[row, tokens].mean(dim=0) for layer in pooled])
                         vectors[span_id] = stacked.numpy()
                     else:
                         vectors[span_id] = pooled[row, tokens].mean(dim=0).numpy()
@@ -365,12 +363,15 @@ class ContextEncoder:
     def encode_texts(self, texts: Sequence[str], by_layer: bool = False) -> np.ndarray:
         """Mean of all (non-special) token vectors of each text: normalised (texts, dim),
         or unnormalised (texts, layers + 1, dim) with by_layer."""
-        shape = (len(texts), self.num_layers + 1, self.dimension) if by_layer else (
-            len(texts), self.dimension)
+        shape = (
+            (len(texts), self.num_layers + 1, self.dimension)
+            if by_layer
+            else (len(texts), self.dimension)
+        )
         vectors = np.zeros(shape, np.float32)
         for batch in self._batches(texts):
             encoding, output = self._forward([texts[i] for i in batch], attentions=False)
-            keep = (encoding["attention_mask"].bool() & ~encoding["special_tokens_mask"].bool())
+            keep = encoding["attention_mask"].bool() & ~encoding["special_tokens_mask"].bool()
             weights = keep.unsqueeze(-1).float()
             counts = weights.sum(dim=1).clamp(min=1.0)
             if by_layer:

@@ -60,10 +60,14 @@ class BenchmarkConfig:
     batch_size: int = 64
 
     def to_json(self) -> dict[str, Any]:
-        return {"layers": list(self.layers), "gloss_template": self.gloss_template,
-                "recipe": self.recipe.to_json(), "held_out_share": self.held_out_share,
-                "calibration_instances": self.calibration_instances,
-                "held_out_salt": self.held_out_salt}
+        return {
+            "layers": list(self.layers),
+            "gloss_template": self.gloss_template,
+            "recipe": self.recipe.to_json(),
+            "held_out_share": self.held_out_share,
+            "calibration_instances": self.calibration_instances,
+            "held_out_salt": self.held_out_salt,
+        }
 
 
 @dataclass(frozen=True)
@@ -109,8 +113,11 @@ def encode_instances(
 
     if not use_cache:
         return compute(), False
-    parts = {"spans": _digest([f"{s}:{e}:{t}" for t, s, e in spans]),
-             "model": encoder.model_id, "recipe": SPAN_RECIPE}
+    parts = {
+        "spans": _digest([f"{s}:{e}:{t}" for t, s, e in spans]),
+        "model": encoder.model_id,
+        "recipe": SPAN_RECIPE,
+    }
     return cached_array(parts, compute)
 
 
@@ -121,8 +128,9 @@ def candidate_keys(reader: WordNetCorpusReader, instance: Instance) -> list[str]
 class GlossTable:
     """Gloss vectors of WordNet senses, encoded in one batch per call and cached on disk."""
 
-    def __init__(self, encoder: Any, reader: WordNetCorpusReader, template: str,
-                 use_cache: bool = True):
+    def __init__(
+        self, encoder: Any, reader: WordNetCorpusReader, template: str, use_cache: bool = True
+    ):
         self.encoder = encoder
         self.reader = reader
         self.template = template
@@ -142,8 +150,11 @@ class GlossTable:
             return np.asarray(self.encoder.encode_texts(texts), np.float32)
 
         if self.use_cache:
-            parts = {"texts": _digest(texts), "model": self.encoder.model_id,
-                     "recipe": GLOSS_RECIPE}
+            parts = {
+                "texts": _digest(texts),
+                "model": self.encoder.model_id,
+                "recipe": GLOSS_RECIPE,
+            }
             vectors, _ = cached_array(parts, compute)
         else:
             vectors = compute()
@@ -161,8 +172,11 @@ class Decisions:
     scores: list[np.ndarray]
 
     def best(self) -> dict[int, str]:
-        return {i: keys[int(np.argmax(s))] for i, (keys, s) in
-                enumerate(zip(self.candidates, self.scores, strict=True)) if keys}
+        return {
+            i: keys[int(np.argmax(s))]
+            for i, (keys, s) in enumerate(zip(self.candidates, self.scores, strict=True))
+            if keys
+        }
 
 
 def decide(
@@ -173,8 +187,10 @@ def decide(
     recipe: PrototypeRecipe,
 ) -> Decisions:
     scorer = SenseScorer(glosses.rows.__getitem__, corpus, recipe)
-    scores = [scorer.scores(vector, keys) if keys else np.zeros(0)
-              for keys, vector in zip(candidates, vectors, strict=True)]
+    scores = [
+        scorer.scores(vector, keys) if keys else np.zeros(0)
+        for keys, vector in zip(candidates, vectors, strict=True)
+    ]
     return Decisions(candidates, scores)
 
 
@@ -183,8 +199,10 @@ def _f1_table(instances: Sequence[Instance], predicted: dict[int, str]) -> dict[
     answers = {instances[n].instance_id: key for n, key in predicted.items()}
     pos = {i.instance_id: i.pos for i in instances}
     overall = score(gold, answers)
-    return {"all": overall.to_json(),
-            **{p: s.to_json() for p, s in score_by_group(gold, answers, pos).items()}}
+    return {
+        "all": overall.to_json(),
+        **{p: s.to_json() for p, s in score_by_group(gold, answers, pos).items()},
+    }
 
 
 def _rows_for_calibration(
@@ -229,18 +247,23 @@ def run_benchmark(
     if limit is not None:
         test = test[:limit]
     _, held_sentences = development_split(
-        train_sentences, config.held_out_share, config.held_out_salt)
+        train_sentences, config.held_out_share, config.held_out_salt
+    )
     train = flatten(train_sentences)
     held_set = {id(s) for s in held_sentences}
     is_held = np.array([id(s) in held_set for s in train_sentences for _ in s.instances], bool)
-    log(f"train: {len(train)} instances ({train_stats.skipped_unresolved} skipped unresolved), "
-        f"test: {len(test)} instances")
+    log(
+        f"train: {len(train)} instances ({train_stats.skipped_unresolved} skipped unresolved), "
+        f"test: {len(test)} instances"
+    )
     clock = lap("read", started)
 
     train_vectors, train_cached = encode_instances(encoder, train, use_cache)
     clock = lap("encode_train", clock)
-    log(f"encoded training instances ({'cache' if train_cached else 'computed'}) "
-        f"in {timings['encode_train']} s")
+    log(
+        f"encoded training instances ({'cache' if train_cached else 'computed'}) "
+        f"in {timings['encode_train']} s"
+    )
     test_vectors, test_cached = encode_instances(encoder, test, use_cache)
     clock = lap("encode_test", clock)
 
@@ -255,8 +278,10 @@ def run_benchmark(
     train_keys = [i.gold[0] for i in train]
     full = CorpusSenseVectors.from_training(reader, train_keys, train_vectors)
     fit_only = CorpusSenseVectors.from_training(
-        reader, [k for k, h in zip(train_keys, is_held, strict=True) if not h],
-        train_vectors[~is_held])
+        reader,
+        [k for k, h in zip(train_keys, is_held, strict=True) if not h],
+        train_vectors[~is_held],
+    )
     clock = lap("prototypes", clock)
 
     recipe = config.recipe
@@ -269,18 +294,26 @@ def run_benchmark(
     predicted = test_decisions.best()
     ours = _f1_table(test, predicted)
     counts = training_sense_counts(train_sentences)
-    mfs = {n: k for n, i in enumerate(test)
-           if (k := most_frequent_sense(reader, counts, i.lemma, i.pos)) is not None}
-    first = {n: k for n, i in enumerate(test)
-             if (k := first_sense(reader, i.lemma, i.pos)) is not None}
+    mfs = {
+        n: k
+        for n, i in enumerate(test)
+        if (k := most_frequent_sense(reader, counts, i.lemma, i.pos)) is not None
+    }
+    first = {
+        n: k for n, i in enumerate(test) if (k := first_sense(reader, i.lemma, i.pos)) is not None
+    }
 
     confidence, hit = _confidences(test_decisions, test, temperature)
     default_confidence, _ = _confidences(test_decisions, test, DEFAULT_TEMPERATURE)
     curve = coverage_curve(confidence.tolist(), hit.tolist())
     held_dev = _f1_table(held, held_decisions.best())
-    held_curve = coverage_curve(*(
-        values.tolist() for values in confidences_and_hits(rows, gold_index, temperature)
-    )) if rows else []
+    held_curve = (
+        coverage_curve(
+            *(values.tolist() for values in confidences_and_hits(rows, gold_index, temperature))
+        )
+        if rows
+        else []
+    )
     result: dict[str, Any] = {
         "train_file": str(train_path),
         "test_file": str(test_path),
@@ -298,13 +331,21 @@ def run_benchmark(
         "calibration_instances": len(rows),
         "held_out_f1": _pct(held_dev["all"]["f1"]),
         "ece": round(expected_calibration_error(confidence, hit), 6) if len(hit) else None,
-        "ece_at_default_temperature": round(
-            expected_calibration_error(default_confidence, hit), 6) if len(hit) else None,
+        "ece_at_default_temperature": round(expected_calibration_error(default_confidence, hit), 6)
+        if len(hit)
+        else None,
         "ece_bins": [
-            {"lower": round(b.lower, 3), "upper": round(b.upper, 3), "count": b.count,
-             "confidence": round(b.mean_confidence, 4), "accuracy": round(b.accuracy, 4)}
+            {
+                "lower": round(b.lower, 3),
+                "upper": round(b.upper, 3),
+                "count": b.count,
+                "confidence": round(b.mean_confidence, 4),
+                "accuracy": round(b.accuracy, 4),
+            }
             for b in reliability_bins(confidence, hit)
-        ] if len(hit) else [],
+        ]
+        if len(hit)
+        else [],
         "auto_share_at": {
             f"{target:.2f}": _share_at(curve, target) for target in config.target_accuracies
         },
@@ -319,8 +360,9 @@ def run_benchmark(
         "cached": {"train": train_cached, "test": test_cached},
     }
     if variants:
-        result["variants"] = _variants(test, test_vectors, test_candidates, glosses, full, recipe,
-                                       extra_recipes or {})
+        result["variants"] = _variants(
+            test, test_vectors, test_candidates, glosses, full, recipe, extra_recipes or {}
+        )
     timings["variants"] = round(time.perf_counter() - clock, 2)
     result["timings"] = timings
     result["seconds"] = round(time.perf_counter() - started, 2)
@@ -333,8 +375,9 @@ def _confidences(
     """Top probability of softmax(scores / T) and whether the top sense is a gold key,
     for every answered instance."""
     confidence, hit = [], []
-    for keys, scores, instance in zip(decisions.candidates, decisions.scores, instances,
-                                      strict=True):
+    for keys, scores, instance in zip(
+        decisions.candidates, decisions.scores, instances, strict=True
+    ):
         if not keys:
             continue
         probabilities = softmax(scores, temperature)
@@ -348,8 +391,11 @@ def _share_at(curve: Sequence[Any], target: float) -> dict[str, float] | None:
     point = threshold_for_accuracy(curve, target)
     if point is None:
         return None
-    return {"threshold": round(point.threshold, 6), "share": round(point.coverage, 6),
-            "accuracy": round(point.accuracy, 6)}
+    return {
+        "threshold": round(point.threshold, 6),
+        "share": round(point.coverage, 6),
+        "accuracy": round(point.accuracy, 6),
+    }
 
 
 def _apply_threshold(
@@ -362,8 +408,11 @@ def _apply_threshold(
     if point is None or not len(confidence):
         return None
     assigned = confidence >= point.threshold
-    return {"threshold": round(point.threshold, 6), "share": round(float(assigned.mean()), 6),
-            "accuracy": round(float(hit[assigned].mean()), 6) if assigned.any() else None}
+    return {
+        "threshold": round(point.threshold, 6),
+        "share": round(float(assigned.mean()), 6),
+        "accuracy": round(float(hit[assigned].mean()), 6) if assigned.any() else None,
+    }
 
 
 def _pct(value: float) -> float:
@@ -383,14 +432,18 @@ def _variants(
     options = {
         "gloss only": replace(recipe, use_corpus=False),
         "gloss + corpus blend, no prior": replace(recipe, prior_weight=0.0, fallback="gloss"),
-        "blend + relations fallback, no prior": replace(recipe, prior_weight=0.0,
-                                                        fallback="relations"),
+        "blend + relations fallback, no prior": replace(
+            recipe, prior_weight=0.0, fallback="relations"
+        ),
         "blend + prior, relations fallback": replace(recipe, fallback="relations"),
         "blend + prior, gloss fallback": replace(recipe, fallback="gloss"),
         **extra_recipes,
     }
     return {
-        name: _pct(_f1_table(test, decide(vectors, candidates, glosses, corpus, option)
-                             .best())["all"]["f1"])
+        name: _pct(
+            _f1_table(test, decide(vectors, candidates, glosses, corpus, option).best())["all"][
+                "f1"
+            ]
+        )
         for name, option in options.items()
     }

@@ -196,7 +196,6 @@ class EngineCache:
                 evicted.retired = True
             return fresh
 
-
     def forget(self, inventory: str) -> None:
         """Drop every engine of `inventory`: evidence was taken away (a review undone), and
         prototypes only grow, so the next request must build afresh."""

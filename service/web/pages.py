@@ -14,10 +14,11 @@ import secrets
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Annotated, Any
 from urllib.parse import parse_qs, urlencode
 
 from fastapi import APIRouter, Depends, FastAPI, Request
+from fastapi import Path as UrlPath
 from fastapi.responses import RedirectResponse, Response
 from fastapi.staticfiles import StaticFiles
 from fastapi.templating import Jinja2Templates
@@ -26,7 +27,7 @@ from sqlalchemy.orm import Session
 
 from service.api.deps import get_session, get_settings_dep
 from service.api.problems import ProblemError
-from service.api.routes.review import run_decision, run_undo
+from service.api.routes.review import MAX_ID, run_decision, run_undo
 from service.config import Settings
 from service.review import quality as review_quality
 from service.review import senses as review_senses
@@ -138,7 +139,10 @@ def posted(
 def _filter_from(values: dict[str, str] | Any) -> tuple[QueueFilter, Order]:
     def pick(name: str) -> str | None:
         value = values.get(name)
-        return value if value else None
+        # a value no stored name can have (NUL, over-long) would only reach the database
+        if not value or "\x00" in value or len(value) > 200:
+            return None
+        return value
 
     order = values.get("order") or "useful"
     if order not in ORDERS:
@@ -348,7 +352,7 @@ def _not_found(request: Request, who: sessions.Reviewer, what: str) -> Response:
 
 @router.get("/items/{item_id}")
 def item_page(
-    item_id: int,
+    item_id: Annotated[int, UrlPath(ge=1, le=MAX_ID)],
     request: Request,
     session: Session = Depends(get_session),
     settings: Settings = Depends(get_settings_dep),
@@ -386,7 +390,7 @@ def item_page(
 
 @router.post("/items/{item_id}/decide")
 def decide(
-    item_id: int,
+    item_id: Annotated[int, UrlPath(ge=1, le=MAX_ID)],
     request: Request,
     post: Posted = Depends(posted),
     session: Session = Depends(get_session),
@@ -419,7 +423,7 @@ def decide(
 
 @router.post("/items/{item_id}/skip")
 def skip(
-    item_id: int,
+    item_id: Annotated[int, UrlPath(ge=1, le=MAX_ID)],
     request: Request,
     post: Posted = Depends(posted),
     session: Session = Depends(get_session),
@@ -542,6 +546,8 @@ def create_sense(
         return _not_found(request, who, "no such inventory")
     try:
         ids = [int(i) for i in fields.get("items", "").split(",") if i.strip()]
+        if any(not 1 <= i <= MAX_ID for i in ids):
+            raise ValueError("an item id is out of range")
         decisions = review_senses.create_sense(
             session,
             who.team_id,

@@ -308,3 +308,19 @@ def test_with_auto_resolve_off_items_stay_in_the_queue(queued):
     )
     assert response.status_code == 201
     assert response.json()["resolved"] == [] and response.json()["rescored"] > 0
+
+
+def test_hostile_identifiers_are_4xx(queued):
+    client, key = queued.pipeline.client, bearer(queued.keys["review"])
+    for response in (
+        client.get("/v1/review/items/99999999999999999999", headers=key),
+        client.get("/v1/review/items/0", headers=key),
+        client.post("/v1/review/claims", json={"term": "ba\u0000ss"}, headers=key),
+        client.post("/v1/review/claims", json={"exclude": [2**40]}, headers=key),
+        client.post("/v1/review/claims", json={"count": 0}, headers=key),
+        client.post("/v1/review/items/1/decision", json={"sense_id": "x\u0000"}, headers=key),
+        client.post("/v1/review/items/1/decision", content=b"{", headers=key),
+        client.get("/v1/review/decisions?after=-1", headers=key),
+    ):
+        assert 400 <= response.status_code < 500, response.text
+        assert response.headers["content-type"] == "application/problem+json"

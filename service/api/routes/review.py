@@ -4,9 +4,9 @@ decide, release, undo, list and export decisions. Keys of scope `review` or `adm
 from __future__ import annotations
 
 import json
-from typing import Any, Literal
+from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, Depends, Query, Request, Response
+from fastapi import APIRouter, Depends, Path, Query, Request, Response
 from pydantic import BaseModel, Field
 from sqlalchemy.orm import Session
 
@@ -38,21 +38,28 @@ _PROBLEMS: dict[int | str, dict[str, Any]] = {
 }
 
 
+MAX_ID = 2_147_483_647  # ids are 32-bit integers in every database we run on
+ItemId = Annotated[int, Path(ge=1, le=MAX_ID)]
+Text = Annotated[str, Field(pattern=r"^[^\x00]*$")]  # PostgreSQL refuses NUL in text
+
+
 class ClaimIn(BaseModel):
     """Which items to claim: up to `count`, optionally of one inventory, term or batch."""
 
     count: int = Field(default=1, ge=1, le=MAX_CLAIM)
-    inventory: str | None = Field(default=None, max_length=64)
-    term: str | None = Field(default=None, max_length=200)
-    batch: str | None = Field(default=None, max_length=32)
+    inventory: Text | None = Field(default=None, max_length=64)
+    term: Text | None = Field(default=None, max_length=200)
+    batch: Text | None = Field(default=None, max_length=32)
     order: Literal["useful", "confidence", "margin"] = "useful"
-    exclude: list[int] = Field(default_factory=list, max_length=1000)
+    exclude: list[Annotated[int, Field(ge=1, le=MAX_ID)]] = Field(
+        default_factory=list, max_length=1000
+    )
 
 
 class DecisionIn(BaseModel):
     """The chosen sense id, or null when none of the term's senses fits."""
 
-    sense_id: str | None = Field(max_length=200)
+    sense_id: Text | None = Field(max_length=200)
 
 
 def run_decision(
@@ -60,7 +67,7 @@ def run_decision(
     settings: Settings,
     team_id: int,
     key_id: str,
-    item_id: int,
+    item_id: ItemId,
     sense_id: str | None,
 ) -> dict[str, Any]:
     """Decide, commit, then re-score the term (shared by the API and the pages)."""
@@ -118,7 +125,7 @@ def claim(
 
 @router.get("/items/{item_id}", responses={**_PROBLEMS, 404: {"description": "no such item"}})
 def read_item(
-    item_id: int,
+    item_id: ItemId,
     session: Session = Depends(get_session),
     caller: Caller = Depends(review_key),
 ) -> dict[str, Any]:
@@ -132,7 +139,7 @@ def read_item(
     responses={**_PROBLEMS, 404: {"description": "no such item"}},
 )
 def release(
-    item_id: int,
+    item_id: ItemId,
     session: Session = Depends(get_session),
     caller: Caller = Depends(review_key),
 ) -> Response:
@@ -153,7 +160,7 @@ def release(
     },
 )
 def decide(
-    item_id: int,
+    item_id: ItemId,
     body: DecisionIn,
     session: Session = Depends(get_session),
     settings: Settings = Depends(get_settings_dep),
@@ -183,8 +190,8 @@ def undo(
 )
 def decisions(
     request: Request,
-    inventory: str | None = Query(default=None, max_length=64),
-    after: int = Query(default=0, ge=0, le=2**62),
+    inventory: str | None = Query(default=None, max_length=64, pattern=r"^[^\x00]*$"),
+    after: int = Query(default=0, ge=0, le=MAX_ID),
     limit: int = Query(default=100, ge=1, le=1000),
     session: Session = Depends(get_session),
     caller: Caller = Depends(review_key),
@@ -224,7 +231,7 @@ class QueueSettingsIn(BaseModel):
     "/settings/{inventory}", responses={**_PROBLEMS, 404: {"description": "no such inventory"}}
 )
 def read_queue_settings(
-    inventory: str,
+    inventory: Annotated[str, Path(max_length=64, pattern=r"^[^\x00]*$")],
     session: Session = Depends(get_session),
     caller: Caller = Depends(review_key),
 ) -> dict[str, Any]:
@@ -237,7 +244,7 @@ def read_queue_settings(
     "/settings/{inventory}", responses={**_PROBLEMS, 404: {"description": "no such inventory"}}
 )
 def write_queue_settings(
-    inventory: str,
+    inventory: Annotated[str, Path(max_length=64, pattern=r"^[^\x00]*$")],
     body: QueueSettingsIn,
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
