@@ -20,8 +20,8 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from service.config import Settings
-from service.engine.assignment import assign
-from service.engine.types import InventorySpec
+from service.engine.assignment import Assignment, assign
+from service.engine.types import Document, InventorySpec
 from service.inventory.document import parse_inventory_document
 from service.review.queue import (
     CLAIM_SECONDS,
@@ -49,7 +49,7 @@ from service.store.models import (
     ReviewDecision,
     ReviewItem,
 )
-from service.tagging.engines import Pin, shared_engines
+from service.tagging.engines import Pin, shared_engines, tag_pinned
 
 MACHINE_FIELDS = ("sense_id", "tags", "confidence", "margin", "status", "candidates")
 REVIEW_KEYS = ("machine_answer", "review", "rescored")
@@ -298,13 +298,68 @@ class Rescored:
     resolved: list[int]
 
 
+RESCORE_DOCUMENTS = 200  # documents re-tagged per decision; further items use their vectors
+
+
+def _answers_by_tagging(
+    session: Session, get_engine: Any, items: list[ReviewItem]
+) -> dict[int, Assignment]:
+    """Re-tag the documents of (the first RESCORE_DOCUMENTS of) `items` with the engine a
+    new batch would get, document consistency included; item id -> its new answer."""
+    rows = {i.id: session.get(BatchResult, i.result_id) for i in items}
+    wanted: list[tuple[str, str]] = []
+    for item in items:
+        key = (item.batch_id, item.document_id)
+        if key not in wanted and len(wanted) < RESCORE_DOCUMENTS:
+            wanted.append(key)
+    documents = []
+    for batch_id, document_id in wanted:
+        stored = session.scalars(
+            select(BatchDocument).where(
+                BatchDocument.batch_id == batch_id, BatchDocument.document_id == document_id
+            )
+        ).one_or_none()
+        if stored is not None:
+            fields = tuple((str(name), str(text)) for name, text in stored.fields)
+            documents.append(Document(doc_id=f"{batch_id}/{document_id}", fields=fields))
+    found = {}
+    for tagged in tag_pinned(get_engine, documents, rationale=False):
+        for occurrence in tagged.occurrences:
+            found[(tagged.document_id, occurrence.field, occurrence.start, occurrence.end)] = (
+                Assignment(
+                    occurrence.sense_id,
+                    occurrence.confidence,
+                    occurrence.margin,
+                    occurrence.status,
+                    occurrence.candidates,
+                )
+            )
+    answers = {}
+    for item in items:
+        row = rows[item.id]
+        if row is None:
+            continue
+        key = (
+            f"{item.batch_id}/{item.document_id}",
+            row.field,
+            row.result["start"],
+            row.result["end"],
+        )
+        if key in found:
+            answers[item.id] = found[key]
+    return answers
+
+
 def rescore_term(
     session: Session, settings: Settings, item: ReviewItem, decision_id: int | None
 ) -> Rescored:
     """Re-score the term's pending items against prototypes advanced by the new evidence.
 
-    Items that come out `assigned` leave the queue when the inventory's auto-resolve
-    setting is on (their batch result then carries the re-scored answer).
+    Their documents are tagged again by the engine a new batch would get (the prototypes
+    advanced in place, document consistency included), so a re-scored answer is the one a
+    fresh batch would return; items past RESCORE_DOCUMENTS are scored from their stored
+    vectors. Items that come out `assigned` leave the queue when the inventory's
+    auto-resolve setting is on (their batch result then carries the re-scored answer).
     """
     inventory = session.get(Inventory, item.inventory_id)
     if inventory is None:
@@ -318,15 +373,22 @@ def rescore_term(
     book = engine.disambiguator.prototypes
     if item.term not in book.terms():
         return Rescored(0, [])
-    vectors = np.stack([vector_from_bytes(i.vector) for i in items])
-    with engine.lock:
-        rows = book.similarities(item.term, vectors)
-        senses = book.senses(item.term)
+    answers = _answers_by_tagging(
+        session, lambda: shared_engines().engine(session, settings, pin), items
+    )
+    rest = [i for i in items if i.id not in answers]
+    if rest:
+        vectors = np.stack([vector_from_bytes(i.vector) for i in rest])
+        with engine.lock:
+            rows = book.similarities(item.term, vectors)
+            senses = book.senses(item.term)
+        for queued, row in zip(rest, rows, strict=True):
+            answers[queued.id] = assign(row, senses, spec.settings)
     resolve = auto_resolve(session, inventory.id)
     now = database_now(session)
     resolved = []
-    for queued, row in zip(items, rows, strict=True):
-        answer = assign(row, senses, spec.settings)
+    for queued in items:
+        answer = answers[queued.id]
         queued.confidence = float(answer.confidence)
         queued.margin = float(answer.margin)
         if resolve and answer.status == "assigned" and not claim_is_live(queued, now):

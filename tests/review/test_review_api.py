@@ -289,6 +289,7 @@ def test_items_made_confident_leave_the_queue_and_come_back_on_undo(queued):
     rescored = [r for r in results if r.get("rescored")]
     assert len(rescored) == len(resolved)
     assert all(r["status"] == "assigned" and "machine_answer" in r for r in rescored)
+    _lower_threshold(client, admin, 0.99)  # so the re-scoring after the undo resolves nothing
     assert client.post("/v1/review/undo", headers=bearer(key)).status_code == 200
     with session_scope(queued.pipeline.settings) as session:
         assert {session.get(ReviewItem, i).state for i in resolved} == {"pending"}
