@@ -31,10 +31,12 @@ from service.api.routes import (
     health,
     home,
     inventories,
+    review,
 )
 from service.config import Settings
 from service.inventory.document import inventory_schema
 from service.store.database import require_migrated, session_factory
+from service.web import pages
 
 DESCRIPTION = (
     "Tells which sense of an ambiguous term each occurrence in your documents carries. "
@@ -143,6 +145,8 @@ def create_app(settings: Settings, *, check_migrated: bool = True) -> FastAPI:
     app.include_router(batches.router)
     app.include_router(disambiguate.router)
     app.include_router(audit.router)
+    app.include_router(review.router)
+    pages.install(app)
     _mount_docs(app)
     return app
 

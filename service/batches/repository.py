@@ -146,16 +146,15 @@ class DocumentSink:
         return self.batch
 
 
-def schedule_webhook(batch: Batch, now: datetime) -> None:
-    """Make the batch's completion notice due now, if it has a callback URL."""
+def schedule_webhook(batch: Batch, now: datetime, event: str = "batch.finished") -> None:
+    """Make a notice (completion, or reviewed results) due now, if it has a callback URL."""
     if batch.callback_url:
         batch.webhook_state = "pending"
+        batch.webhook_event = event
         batch.webhook_next_attempt_at = now
 
 
-def get_batch(
-    session: Session, team_id: int, batch_id: str, *, for_update: bool = False
-) -> Batch:
+def get_batch(session: Session, team_id: int, batch_id: str, *, for_update: bool = False) -> Batch:
     """The team's batch; another team's is NotFound, exactly like a missing one."""
     query = select(Batch).where(Batch.team_id == team_id, Batch.id == batch_id)
     if for_update:
@@ -206,6 +205,7 @@ def batch_counts(session: Session, batch: Batch) -> BatchCounts:
         assigned=int(results.get("assigned", 0)),
         review=int(results.get("review", 0)),
         abstained=int(results.get("abstained", 0)),
+        reviewed=int(results.get("reviewed", 0)),
     )
 
 

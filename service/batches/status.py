@@ -28,6 +28,7 @@ class BatchCounts:
     assigned: int
     review: int
     abstained: int
+    reviewed: int = 0  # results a person decided in the review queue
 
     @property
     def progress(self) -> float:
@@ -99,7 +100,7 @@ def webhook_body(batch: Batch, counts: BatchCounts) -> dict[str, Any]:
     """What the callback URL receives when the batch ends."""
     links = batch_links(batch.base_url)
     return {
-        "event": "batch.finished",
+        "event": batch.webhook_event or "batch.finished",
         "batch_id": batch.id,
         "state": batch.state,
         "inventory": {"name": batch.inventory_name, "version": batch.inventory_version},

@@ -257,6 +257,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         )
         name, version = inventory.name, inventory.version
         admin = create_key(session, team.id, "admin", "demo")
+        reviewer = create_key(session, team.id, "review", "demo reviewer")
     print(f"team '{DEMO_TEAM}': inventory '{name}' version {version} loaded", file=sys.stderr)
 
     server = BackgroundServer(
@@ -322,6 +323,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
             _write_report(held_out_path, args.output / "report", name, settings)
         print(f"\nwhichsense is serving at {server.base_url}  (API docs: {server.base_url}/docs)")
         print(f"admin API key of team '{DEMO_TEAM}' (it sees this team only): {admin.token}")
+        print(f"review queue: {server.base_url}/review  (sign in with: {reviewer.token})")
         if args.exit:
             return 0 if status["state"] == "done" else 1
         print("press Ctrl-C to stop")

@@ -15,9 +15,7 @@ class DocumentTooLarge(EngineError, ValueError):
     """A document's text exceeds the engine's size limit (the shell answers 413/422)."""
 
     def __init__(self, doc_id: str, size: int, limit: int) -> None:
-        super().__init__(
-            f"document {doc_id!r} has {size} characters of text; the limit is {limit}"
-        )
+        super().__init__(f"document {doc_id!r} has {size} characters of text; the limit is {limit}")
         self.doc_id = doc_id
         self.size = size
         self.limit = limit

@@ -113,9 +113,7 @@ class OccurrenceFinder:
         pieces = split_pieces(surface)
         if not pieces:
             return None
-        spaced = tuple(
-            i > 0 and pieces[i - 1].end < pieces[i].start for i in range(len(pieces))
-        )
+        spaced = tuple(i > 0 and pieces[i - 1].end < pieces[i].start for i in range(len(pieces)))
         return _Pattern(
             term=spec.term,
             order=order,

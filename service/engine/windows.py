@@ -132,8 +132,10 @@ def plan_windows(
                 lo, hi = _snap(tokens, lo, hi, s_lo, s_hi)
             if hi - lo < min_tokens:
                 lo, hi = _snap(tokens, *_widen(tokens, lo, hi, min_tokens), 0, len(tokens))
-            start = min([tokens.starts[lo] if lo < len(tokens) else len(text)]
-                        + [spans[i][0] for i in group])
+            start = min(
+                [tokens.starts[lo] if lo < len(tokens) else len(text)]
+                + [spans[i][0] for i in group]
+            )
             end = max([tokens.ends[hi - 1] if hi > lo else start] + [spans[i][1] for i in group])
             windows.append(PlannedWindow(start, end, tuple(group)))
     return windows

@@ -21,8 +21,9 @@ from service.inventory.document import fold
 from service.wordnet.corpus import CorpusStats, corpus_evidence, is_corpus_line, parse_sentence
 
 
-def labeled_evidence(occurrences: Iterable[LabeledOccurrence], first_id: int = 1) -> Iterator[
-        Evidence]:
+def labeled_evidence(
+    occurrences: Iterable[LabeledOccurrence], first_id: int = 1
+) -> Iterator[Evidence]:
     """One Evidence per labeled occurrence, source "import"."""
     for number, item in enumerate(occurrences, start=first_id):
         yield Evidence(
@@ -57,8 +58,9 @@ def restrict_to_inventory(
         if item.sense_id not in senses:
             skipped["unknown sense"] += 1
             continue
-        yield Evidence(item.evidence_id, spelled, item.sense_id, item.text, item.start,
-                       item.end, item.source)
+        yield Evidence(
+            item.evidence_id, spelled, item.sense_id, item.text, item.start, item.end, item.source
+        )
 
 
 def file_evidence(path: str | Path, corpus_stats: CorpusStats) -> Iterator[Evidence]:

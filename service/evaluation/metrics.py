@@ -20,9 +20,13 @@ class LabelScore:
     support: int
 
     def to_json(self) -> dict[str, float | int | str]:
-        return {"label": self.label, "precision": round(self.precision, 6),
-                "recall": round(self.recall, 6), "f1": round(self.f1, 6),
-                "support": self.support}
+        return {
+            "label": self.label,
+            "precision": round(self.precision, 6),
+            "recall": round(self.recall, 6),
+            "f1": round(self.f1, 6),
+            "support": self.support,
+        }
 
 
 def accuracy(gold: Sequence[str], predicted: Sequence[str | None]) -> float:
@@ -87,9 +91,7 @@ def coverage_curve(confidences: Sequence[float], correct: Sequence[bool]) -> lis
     return points
 
 
-def threshold_for_accuracy(
-    curve: Sequence[CoveragePoint], target: float
-) -> CoveragePoint | None:
+def threshold_for_accuracy(curve: Sequence[CoveragePoint], target: float) -> CoveragePoint | None:
     """The loosest threshold whose assigned share is at least `target` accurate, or None."""
     reaching = [point for point in curve if point.accuracy >= target]
     return max(reaching, key=lambda point: point.coverage) if reaching else None

@@ -107,8 +107,12 @@ def threshold_support(point: CoveragePoint | None) -> dict[str, Any] | None:
 def _point_json(point: CoveragePoint | None) -> dict[str, float] | None:
     if point is None:
         return None
-    return {"threshold": round(point.threshold, 6), "coverage": round(point.coverage, 6),
-            "accuracy": round(point.accuracy, 6), "assigned": point.assigned}
+    return {
+        "threshold": round(point.threshold, 6),
+        "coverage": round(point.coverage, 6),
+        "accuracy": round(point.accuracy, 6),
+        "assigned": point.assigned,
+    }
 
 
 def term_summary(term: str, senses: Sequence[str], items: Sequence[Outcome]) -> dict[str, Any]:
@@ -116,8 +120,9 @@ def term_summary(term: str, senses: Sequence[str], items: Sequence[Outcome]) -> 
     gold = [o.gold for o in items]
     best = [o.best for o in items]
     labels = list(senses) + sorted({g for g in gold if g not in senses})  # unknown gold last
-    served = score({o.occurrence_id: {o.gold} for o in items},
-                   {o.occurrence_id: o.served for o in items})
+    served = score(
+        {o.occurrence_id: {o.gold} for o in items}, {o.occurrence_id: o.served for o in items}
+    )
     return {
         "term": term,
         "n": len(items),
@@ -140,8 +145,9 @@ def summarise(
         raise ValueError("no labeled occurrence could be evaluated")
     confidences = np.array([o.confidence for o in outcomes], np.float64)
     hits = np.array([o.correct for o in outcomes], bool)
-    served = score({o.occurrence_id: {o.gold} for o in outcomes},
-                   {o.occurrence_id: o.served for o in outcomes})
+    served = score(
+        {o.occurrence_id: {o.gold} for o in outcomes}, {o.occurrence_id: o.served for o in outcomes}
+    )
     curve = coverage_curve(confidences.tolist(), hits.tolist())
     chosen = threshold_for_accuracy(curve, target_accuracy)
     by_term: dict[str, list[Outcome]] = defaultdict(list)
@@ -159,8 +165,13 @@ def summarise(
         },
         "ece": round(expected_calibration_error(confidences, hits, n_bins), 6),
         "reliability": [
-            {"lower": round(b.lower, 6), "upper": round(b.upper, 6), "count": b.count,
-             "mean_confidence": round(b.mean_confidence, 6), "accuracy": round(b.accuracy, 6)}
+            {
+                "lower": round(b.lower, 6),
+                "upper": round(b.upper, 6),
+                "count": b.count,
+                "mean_confidence": round(b.mean_confidence, 6),
+                "accuracy": round(b.accuracy, 6),
+            }
             for b in reliability_bins(confidences, hits, n_bins)
         ],
         "target_accuracy": target_accuracy,
@@ -191,8 +202,15 @@ def reliability_png(summary: dict[str, Any]) -> bytes:
     axes = figure.subplots()
     bins = [b for b in summary["reliability"] if b["count"]]
     width = summary["reliability"][0]["upper"] - summary["reliability"][0]["lower"]
-    axes.bar([b["lower"] for b in bins], [b["accuracy"] for b in bins], width=width,
-             align="edge", edgecolor="black", color="#4c78a8", label="accuracy")
+    axes.bar(
+        [b["lower"] for b in bins],
+        [b["accuracy"] for b in bins],
+        width=width,
+        align="edge",
+        edgecolor="black",
+        color="#4c78a8",
+        label="accuracy",
+    )
     axes.plot([0, 1], [0, 1], linestyle="--", color="grey", label="perfect calibration")
     axes.set_xlim(0, 1)
     axes.set_ylim(0, 1)
@@ -211,12 +229,21 @@ def coverage_png(summary: dict[str, Any]) -> bytes:
     axes = figure.subplots()
     curve = summary["coverage_curve"]
     axes.plot([p["coverage"] for p in curve], [p["accuracy"] for p in curve], color="#4c78a8")
-    axes.axhline(summary["target_accuracy"], linestyle="--", color="grey",
-                 label=f"target {summary['target_accuracy']:.0%}")
+    axes.axhline(
+        summary["target_accuracy"],
+        linestyle="--",
+        color="grey",
+        label=f"target {summary['target_accuracy']:.0%}",
+    )
     chosen = summary["threshold_for_target"]
     if chosen:
-        axes.plot([chosen["coverage"]], [chosen["accuracy"]], "o", color="#e45756",
-                  label=f"threshold {chosen['threshold']:.3f}")
+        axes.plot(
+            [chosen["coverage"]],
+            [chosen["accuracy"]],
+            "o",
+            color="#e45756",
+            label=f"threshold {chosen['threshold']:.3f}",
+        )
     axes.set_xlim(0, 1.02)
     axes.set_ylim(0, 1.02)
     axes.set_xlabel("share assigned automatically")
@@ -248,10 +275,17 @@ def render_html(summary: dict[str, Any], outcomes: Sequence[Outcome], meta: dict
         summary=summary,
         meta=meta,
         errors=[
-            {"id": o.occurrence_id, "term": o.term, "gold": o.gold, "best": o.best,
-             "confidence": o.confidence, "status": o.status,
-             "before": o.text[max(0, o.start - 120) : o.start], "span": o.text[o.start : o.end],
-             "after": o.text[o.end : o.end + 120]}
+            {
+                "id": o.occurrence_id,
+                "term": o.term,
+                "gold": o.gold,
+                "best": o.best,
+                "confidence": o.confidence,
+                "status": o.status,
+                "before": o.text[max(0, o.start - 120) : o.start],
+                "span": o.text[o.start : o.end],
+                "after": o.text[o.end : o.end + 120],
+            }
             for o in errors
         ],
         reliability_uri=data_uri(reliability_png(summary)),

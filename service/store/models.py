@@ -18,6 +18,7 @@ from sqlalchemy import (
     ForeignKey,
     Index,
     Integer,
+    LargeBinary,
     String,
     Text,
     UniqueConstraint,
@@ -226,6 +227,9 @@ class Batch(Base):
     base_url: Mapped[str] = mapped_column(String(500), default="")
     callback_url: Mapped[str | None] = mapped_column(Text, nullable=True)
     webhook_state: Mapped[str] = mapped_column(String(16), default="none")
+    webhook_event: Mapped[str] = mapped_column(
+        String(32), default="batch.finished", server_default="batch.finished"
+    )
     webhook_attempts: Mapped[int] = mapped_column(Integer, default=0)
     webhook_next_attempt_at: Mapped[datetime | None] = mapped_column(
         DateTime(timezone=True), nullable=True
@@ -329,3 +333,109 @@ class WebhookAttempt(Base):
     status_code: Mapped[int | None] = mapped_column(Integer, nullable=True)
     error: Mapped[str | None] = mapped_column(Text, nullable=True)
     duration_seconds: Mapped[float] = mapped_column(Float, default=0.0)
+
+
+# Review queue ----------------------------------------------------------------------------------
+#
+# A review item is one batch result a person should look at (status review or abstained). Its
+# context vector is kept so a decision can re-score the term's other pending items without
+# encoding them again, and so "none of these" items can be clustered into new senses.
+
+REVIEW_ITEM_STATES = ("pending", "decided", "missing", "resolved")
+
+
+class ReviewItem(Base):
+    """One queued occurrence: its machine answer's scores, its state and its claim."""
+
+    __tablename__ = "review_items"
+    __table_args__ = (
+        UniqueConstraint("result_id"),
+        Index("ix_review_items_queue", "team_id", "state", "inventory_id", "term"),
+        Index("ix_review_items_batch", "batch_id", "state"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
+    result_id: Mapped[int] = mapped_column(
+        BigInteger().with_variant(Integer(), "sqlite"),
+        ForeignKey("batch_results.id", ondelete="CASCADE"),
+    )
+    batch_id: Mapped[str] = mapped_column(ForeignKey("batches.id", ondelete="CASCADE"))
+    inventory_id: Mapped[int] = mapped_column(ForeignKey("inventories.id", ondelete="CASCADE"))
+    term: Mapped[str] = mapped_column(String(200))
+    document_id: Mapped[str] = mapped_column(String(200))
+    machine_status: Mapped[str] = mapped_column(String(16))
+    state: Mapped[str] = mapped_column(String(16), default="pending")
+    confidence: Mapped[float] = mapped_column(Float)
+    margin: Mapped[float] = mapped_column(Float)
+    usefulness: Mapped[float] = mapped_column(Float, default=0.0)
+    vector: Mapped[bytes] = mapped_column(LargeBinary)
+    claimed_by: Mapped[str | None] = mapped_column(String(32), nullable=True)
+    claim_expires_at: Mapped[datetime | None] = mapped_column(
+        DateTime(timezone=True), nullable=True
+    )
+    resolved_by_decision: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
+
+class ReviewDecision(Base):
+    """A reviewer's answer for one item; undone decisions stay, marked, for the audit trail."""
+
+    __tablename__ = "review_decisions"
+    __table_args__ = (
+        Index("ix_review_decisions_team", "team_id", "id"),
+        Index("ix_review_decisions_item", "item_id"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
+    item_id: Mapped[int] = mapped_column(ForeignKey("review_items.id", ondelete="CASCADE"))
+    inventory_id: Mapped[int] = mapped_column(ForeignKey("inventories.id", ondelete="CASCADE"))
+    inventory_version: Mapped[int] = mapped_column(Integer)
+    key_id: Mapped[str] = mapped_column(String(32))
+    term: Mapped[str] = mapped_column(String(200))
+    sense_id: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    machine_sense_id: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    machine_status: Mapped[str] = mapped_column(String(16))
+    evidence_id: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    queue_share: Mapped[float] = mapped_column(Float, default=0.0)
+    evidence_count: Mapped[int] = mapped_column(Integer, default=0)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    undone_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+
+
+class ReviewSettings(Base):
+    """Per-inventory queue settings (absent row: the defaults)."""
+
+    __tablename__ = "review_settings"
+
+    inventory_id: Mapped[int] = mapped_column(
+        ForeignKey("inventories.id", ondelete="CASCADE"), primary_key=True
+    )
+    auto_resolve: Mapped[bool] = mapped_column(default=True)
+
+
+class WebSession(Base):
+    """A signed-in reviewer in a browser; the cookie carries the id, signed."""
+
+    __tablename__ = "web_sessions"
+
+    id: Mapped[str] = mapped_column(String(64), primary_key=True)
+    key_id: Mapped[str] = mapped_column(String(32))
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"))
+    scope: Mapped[str] = mapped_column(String(16))
+    csrf_token: Mapped[str] = mapped_column(String(64))
+    skipped: Mapped[list[Any]] = mapped_column(JSON, default=list)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    expires_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    ended_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+
+
+class WebSecret(Base):
+    """The server-side key that signs session cookies (one row, made on first use)."""
+
+    __tablename__ = "web_secrets"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    secret: Mapped[str] = mapped_column(String(128))
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow)

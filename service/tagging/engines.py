@@ -245,6 +245,13 @@ class EngineCache:
                 evicted.retired = True
             return fresh
 
+    def forget(self, inventory: str) -> None:
+        """Drop every engine of `inventory`: evidence was taken away (a review undone), and
+        prototypes only grow, so the next request must build afresh."""
+        with self._lock:
+            for key in [key for key in self._engines if key[0][1].name == inventory]:
+                self._engines.pop(key).retired = True
+
 
 def tag_pinned(
     get_engine: Callable[[], PinnedEngine],

@@ -26,8 +26,11 @@ def _definition_examples(sense: Lemma) -> str:
 
 def _synonyms_definition_examples(sense: Lemma) -> str:
     own = surface_form(sense.name())
-    others = [surface_form(other.name()) for other in sense.synset().lemmas()
-              if other.name() != sense.name()]
+    others = [
+        surface_form(other.name())
+        for other in sense.synset().lemmas()
+        if other.name() != sense.name()
+    ]
     head = ", ".join([own, *others])
     return "; ".join([f"{head}: {sense.synset().definition()}", *sense.synset().examples()])
 

@@ -47,9 +47,14 @@ class PrototypeRecipe:
     use_corpus: bool = True  # False: glosses only
 
     def to_json(self) -> dict[str, object]:
-        return {"evidence_prior": self.evidence_prior, "prior_weight": self.prior_weight,
-                "fallback": self.fallback, "relations_weight": self.relations_weight,
-                "max_hypernym_steps": self.max_hypernym_steps, "use_corpus": self.use_corpus}
+        return {
+            "evidence_prior": self.evidence_prior,
+            "prior_weight": self.prior_weight,
+            "fallback": self.fallback,
+            "relations_weight": self.relations_weight,
+            "max_hypernym_steps": self.max_hypernym_steps,
+            "use_corpus": self.use_corpus,
+        }
 
 
 def _unit(vector: np.ndarray) -> np.ndarray:
@@ -127,8 +132,11 @@ class CorpusSenseVectors:
         frontier = [self.reader.synset(synset_name)]
         for _ in range(max_hypernym_steps):
             frontier = [h for s in frontier for h in s.hypernyms() + s.instance_hypernyms()]
-            seen = [_unit(self.synset_sum[h.name()]) for h in frontier
-                    if self.synset_count.get(h.name())]
+            seen = [
+                _unit(self.synset_sum[h.name()])
+                for h in frontier
+                if self.synset_count.get(h.name())
+            ]
             if seen:
                 return _unit(np.mean(seen, axis=0))
             if not frontier:

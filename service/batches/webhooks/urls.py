@@ -55,8 +55,10 @@ def address_refusal(address: IPAddress, *, allow_private: bool) -> str | None:
     """Why `address` may not receive webhooks, or None if it may."""
     if isinstance(address, ipaddress.IPv6Address):
         # IPv4 inside IPv6 (mapped, 6to4, Teredo) is judged as the IPv4 address it reaches.
-        embedded = address.ipv4_mapped or address.sixtofour or (
-            address.teredo[1] if address.teredo else None
+        embedded = (
+            address.ipv4_mapped
+            or address.sixtofour
+            or (address.teredo[1] if address.teredo else None)
         )
         if embedded is not None:
             address = embedded
