@@ -153,9 +153,7 @@ def schedule_webhook(batch: Batch, now: datetime) -> None:
         batch.webhook_next_attempt_at = now
 
 
-def get_batch(
-    session: Session, team_id: int, batch_id: str, *, for_update: bool = False
-) -> Batch:
+def get_batch(session: Session, team_id: int, batch_id: str, *, for_update: bool = False) -> Batch:
     """The team's batch; another team's is NotFound, exactly like a missing one."""
     query = select(Batch).where(Batch.team_id == team_id, Batch.id == batch_id)
     if for_update:

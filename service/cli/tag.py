@@ -134,9 +134,7 @@ def _say(message: str, progress: tqdm | None) -> None:
         print(f"whichsense tag: {message}", file=sys.stderr)
 
 
-def load_inventory(
-    reference: str, team: str | None = None
-) -> tuple[InventorySpec, list[Evidence]]:
+def load_inventory(reference: str, team: str | None = None) -> tuple[InventorySpec, list[Evidence]]:
     """An inventory from a document file, or by name (with its evidence) from the database."""
     path = Path(reference)
     if path.is_file():

@@ -23,11 +23,16 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     actions = parser.add_subparsers(dest="action", metavar="ACTION", required=True)
     create = actions.add_parser("create", help="create a team")
     create.add_argument("name")
-    create.add_argument("--retention-days", type=int, metavar="DAYS",
-                        help="delete documents and results of batches finished DAYS ago")
+    create.add_argument(
+        "--retention-days",
+        type=int,
+        metavar="DAYS",
+        help="delete documents and results of batches finished DAYS ago",
+    )
     create.set_defaults(func=run_create)
-    actions.add_parser("list", help="list teams with their keys, inventories and batches"
-                       ).set_defaults(func=run_list)
+    actions.add_parser(
+        "list", help="list teams with their keys, inventories and batches"
+    ).set_defaults(func=run_list)
     retention = actions.add_parser("retention", help="set or clear a team's retention")
     retention.add_argument("name")
     retention.add_argument("days", help="days after which finished batches are purged, or 'none'")
@@ -35,8 +40,9 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
 
 
 def add_team_option(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--team", metavar="NAME",
-                        help="the team (may be left out while there is only one)")
+    parser.add_argument(
+        "--team", metavar="NAME", help="the team (may be left out while there is only one)"
+    )
 
 
 def team_id(session: Session, name: str | None) -> int:
@@ -64,8 +70,10 @@ def run_list(_args: argparse.Namespace) -> int:
                 for model in (ApiKey, Inventory, Batch)
             ]
             retention = f"{team.retention_days} days" if team.retention_days else "kept"
-            print(f"{team.name}\t{counts[0]} keys\t{counts[1]} inventories\t"
-                  f"{counts[2]} batches\tretention: {retention}")
+            print(
+                f"{team.name}\t{counts[0]} keys\t{counts[1]} inventories\t"
+                f"{counts[2]} batches\tretention: {retention}"
+            )
     return 0
 
 

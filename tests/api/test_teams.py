@@ -51,9 +51,7 @@ def _teams(settings: Any) -> dict[str, dict[str, str]]:
     with session_scope(settings) as session:
         teams = {name: create_team(session, name).id for name in ("fishing", "choir")}
         return {
-            name: {
-                scope: create_key(session, team, scope).token for scope in ("ingest", "admin")
-            }
+            name: {scope: create_key(session, team, scope).token for scope in ("ingest", "admin")}
             for name, team in teams.items()
         }
 

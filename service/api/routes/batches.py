@@ -212,9 +212,7 @@ def list_results(
         session.rollback()
 
         def page(s: Session, position: Any) -> tuple[list[Any], Any]:
-            return batch_results.results_page(
-                s, batch, chosen, after=position, limit=STREAM_PAGE
-            )
+            return batch_results.results_page(s, batch, chosen, after=position, limit=STREAM_PAGE)
 
         return stream_pages(request.app.state.sessions, page, after)
     rows, following = batch_results.results_page(

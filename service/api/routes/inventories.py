@@ -132,9 +132,7 @@ def patch_inventory(
         if patch.settings is not None:
             document["settings"].update(patch.settings.model_dump(exclude_unset=True))
 
-    inventory = repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    inventory = repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     summary = _summary(session, inventory)
     session.commit()
     return summary
@@ -269,9 +267,7 @@ def patch_term(
         entry.update(patch.model_dump(exclude_unset=True))
         changed.update(entry)
 
-    repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     session.commit()
     return changed
 
@@ -286,9 +282,7 @@ def delete_term(
     def change(document: dict[str, Any]) -> None:
         document["terms"].remove(repo.find_term(document, term))
 
-    repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     session.commit()
     return Response(status_code=204)
 
@@ -307,9 +301,7 @@ def add_sense(
     def change(document: dict[str, Any]) -> None:
         repo.find_term(document, term)["senses"].append(sense.model_dump())
 
-    repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     session.commit()
     return sense.model_dump()
 
@@ -341,9 +333,7 @@ def patch_sense(
         sense.update(patch.model_dump(exclude_unset=True))
         changed.update(sense)
 
-    repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     session.commit()
     return changed
 
@@ -359,9 +349,7 @@ def delete_sense(
         term, sense = repo.find_sense(document, sense_id)
         term["senses"].remove(sense)
 
-    repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     session.commit()
     return Response(status_code=204)
 
@@ -398,9 +386,7 @@ def add_example(
         sense.setdefault("examples", []).append(example.text)
         position.append(len(sense["examples"]) - 1)
 
-    repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     session.commit()
     return ExampleOut(index=position[0], text=example.text)
 
@@ -424,9 +410,7 @@ def replace_example(
         _example_at(sense, index)
         sense["examples"][index] = example.text
 
-    repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     session.commit()
     return ExampleOut(index=index, text=example.text)
 
@@ -444,8 +428,6 @@ def delete_example(
         _example_at(sense, index)
         del sense["examples"][index]
 
-    repo.edit_inventory(
-        session, caller.team_id, name, change, key_id=caller.key_id
-    )
+    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
     session.commit()
     return Response(status_code=204)
