@@ -19,12 +19,11 @@ from dataclasses import dataclass, field
 
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.batches.leases import claim_chunk
+from service.batches.leases import claim_next
 from service.batches.processing import ChunkProcessor, RetryPolicy
-from service.batches.repository import mark_running, purge_expired
+from service.batches.repository import purge_expired
 from service.batches.taggers import EngineTagger, Tagger
-from service.batches.webhooks.deliveries import claim_due_webhook, record_webhook_attempt
-from service.batches.webhooks.sending import WebhookPolicy, deliver
+from service.batches.webhooks.sending import WebhookPolicy, deliver_next
 from service.config import Settings
 from service.store.clock import database_now
 from service.store.database import session_factory
@@ -128,12 +127,9 @@ class Worker:
         return rounds
 
     def process_one_chunk(self) -> bool:
-        with self.sessions.begin() as session:
-            claim = claim_chunk(session, self.name, self.settings.lease_seconds)
+        claim = claim_next(self.sessions, self.name, self.settings.lease_seconds)
         if claim is None:
             return False
-        with self.sessions.begin() as session:
-            mark_running(session, claim.batch_id, database_now(session))
         outcome = self.chunks.run(claim)
         log.info(
             "chunk %d of batch %s (try %d): %s",
@@ -145,24 +141,15 @@ class Worker:
         return True
 
     def deliver_one_webhook(self) -> bool:
-        timeout = self.settings.webhook_timeout_seconds
-        with self.sessions.begin() as session:
-            due = claim_due_webhook(session, claim_seconds=timeout * 3 + 5)
-        if due is None:
+        done = deliver_next(
+            self.sessions,
+            self.policy.webhooks,
+            timeout=self.settings.webhook_timeout_seconds,
+            allow_private=self.settings.allow_private_webhooks,
+        )
+        if done is None:
             return False
-        result = deliver(due, allow_private=self.settings.allow_private_webhooks, timeout=timeout)
-        retry_in = None if result.permanent else self.policy.webhooks.retry_in(due.attempt)
-        with self.sessions.begin() as session:
-            record_webhook_attempt(
-                session,
-                due,
-                status_code=result.status_code,
-                error=result.error,
-                duration_seconds=result.duration_seconds,
-                delivered=result.delivered,
-                retry_in=retry_in,
-            )
-        outcome = "delivered" if result.delivered else ("retry" if retry_in else "failed")
+        due, outcome = done
         metrics.WEBHOOKS.labels(outcome).inc()
         log.info("webhook for batch %s, try %d: %s", due.batch_id, due.attempt, outcome)
         return True

@@ -67,8 +67,8 @@ def upgrade() -> None:
     default_id = None
     if existing:
         op.bulk_insert(
-            teams, [{"id": 1, "name": "default", "retention_days": None,
-                     "created_at": datetime.now(UTC)}]
+            teams,
+            [{"id": 1, "name": "default", "retention_days": None, "created_at": datetime.now(UTC)}],
         )
         default_id = 1
 

@@ -278,7 +278,8 @@ class Intake:
             raise Refused("invalid", "'documents' is empty; a batch needs at least one document")
         limit = self.settings.max_documents_per_batch
         if len(documents) > limit:
-            raise Refused("too_large",
+            raise Refused(
+                "too_large",
                 f"{len(documents)} documents; a batch may have at most {limit}",
                 limit="max_documents_per_batch",
             )
@@ -304,20 +305,23 @@ class Intake:
                 try:
                     item = json.loads(line.decode("utf-8"))
                 except UnicodeDecodeError as exc:
-                    raise Refused("malformed",
+                    raise Refused(
+                        "malformed",
                         f"line {number} is not UTF-8 (byte {exc.start} of the line)",
                         kind="bad-encoding",
                         line=number,
                     ) from None
                 except json.JSONDecodeError as exc:
-                    raise Refused("malformed",
+                    raise Refused(
+                        "malformed",
                         f"line {number} is not valid JSON: {exc.msg} at column {exc.colno}",
                         kind="malformed-ndjson",
                         line=number,
                     ) from None
                 if self.batch is None:
                     if not isinstance(item, dict) or "inventory" not in item:
-                        raise Refused("invalid",
+                        raise Refused(
+                            "invalid",
                             f"line {number}: the first line must be a header object "
                             '{"inventory": ...} unless ?inventory= is given',
                             kind="missing-header",
@@ -395,7 +399,8 @@ class Intake:
         if first is not None:
             earlier = f"line {first['line']}" if "line" in first else f"document {first['index']}"
             place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
-            raise Refused("invalid",
+            raise Refused(
+                "invalid",
                 f"{place}: document id {document.doc_id!r} was already used at {earlier}",
                 kind="duplicate-document-id",
                 document_id=document.doc_id,
@@ -404,7 +409,8 @@ class Intake:
             )
         limit = self.settings.max_documents_per_batch
         if len(self._seen) >= limit:
-            raise Refused("too_large",
+            raise Refused(
+                "too_large",
                 f"more than {limit} documents; a batch may have at most {limit}",
                 limit="max_documents_per_batch",
                 **where,
@@ -427,7 +433,8 @@ class Intake:
             occurrences = len(self._finder.find(document.to_engine()))
             if occurrences > limit:
                 place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
-                raise Refused("invalid",
+                raise Refused(
+                    "invalid",
                     f"{place}: document {document.doc_id!r} has {occurrences} occurrences; "
                     f"the limit is {limit}",
                     limit="max_occurrences_per_document",

@@ -61,6 +61,7 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
 
 
 DEMO_TEAM = "demo"
+OTHER_TEAM = "demo-neighbours"
 
 
 def _fresh_sqlite(url: str) -> None:
@@ -315,6 +316,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
                     if line.strip():
                         out.write(line + "\n")
                         results.append(json.loads(line))
+            _show_isolation(settings, client, submitted["links"]["self"])
         summary = summarise(results, _located_labels(args.corpus, held_out), status)
         print(summary)
         (args.output / "summary.txt").write_text(summary + "\n", encoding="utf-8")
@@ -332,6 +334,22 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         return 0
     finally:
         server.stop()
+
+
+def _show_isolation(settings: Settings, client: httpx.Client, batch_url: str) -> None:
+    """A second team on the same service: its admin key cannot see the demo team's batch."""
+    from service.store.database import session_scope
+    from service.store.keys import create_key
+    from service.store.teams import demo_team
+
+    with session_scope(settings) as session:
+        other = create_key(session, demo_team(session, OTHER_TEAM).id, "admin", "demo").token
+    answer = client.get(batch_url, headers={"Authorization": f"Bearer {other}"})
+    print(
+        f"team '{OTHER_TEAM}' asks for this batch with its own admin key: HTTP "
+        f"{answer.status_code} (each team sees only its own inventories and batches)",
+        file=sys.stderr,
+    )
 
 
 def _run_subcommand(settings: Settings, *words: str) -> None:

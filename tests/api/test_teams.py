@@ -10,6 +10,7 @@ from typing import Any
 
 from sqlalchemy import func, select, update
 
+from service.batches.cursors import encode_cursor
 from service.store.clock import database_now
 from service.store.database import session_scope
 from service.store.keys import create_key, revoke_key
@@ -51,9 +52,7 @@ def _teams(settings: Any) -> dict[str, dict[str, str]]:
     with session_scope(settings) as session:
         teams = {name: create_team(session, name).id for name in ("fishing", "choir")}
         return {
-            name: {
-                scope: create_key(session, team, scope).token for scope in ("ingest", "admin")
-            }
+            name: {scope: create_key(session, team, scope).token for scope in ("ingest", "admin")}
             for name, team in teams.items()
         }
 
@@ -167,8 +166,9 @@ def test_batch_listing_filters_and_pages_newest_first(
     after = client.get("/v1/batches", params={"created_after": third}, headers=admin).json()
     assert [b["id"] for b in after["batches"]] == ids[3:][::-1]
     assert client.get("/v1/batches", params={"state": "lost"}, headers=admin).status_code == 422
-    bad = client.get("/v1/batches", params={"cursor": "nope"}, headers=admin)
-    assert bad.status_code == 422
+    for cursor in ("nope", encode_cursor(2**62, 1, 1), encode_cursor(1, 16**12, 0)):
+        bad = client.get("/v1/batches", params={"cursor": cursor}, headers=admin)
+        assert bad.status_code == 422, cursor  # not 5xx: far past year 9999, id out of range
 
 
 def test_purge_now_and_by_retention_keep_counts_and_leave_audit_lines(

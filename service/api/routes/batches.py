@@ -24,10 +24,16 @@ from service.api.schemas import documents_body_schema
 from service.api.streaming import NDJSON, stream_pages, wants_ndjson
 from service.batches import repository as batches
 from service.batches import results as batch_results
-from service.batches.cursors import CursorInvalid, decode_cursor, encode_cursor
+from service.batches.cursors import (
+    CursorInvalid,
+    decode_cursor,
+    decode_listing_cursor,
+    encode_cursor,
+    encode_listing_cursor,
+)
 from service.batches.intake import Intake, Submission, check_idempotency_key
 from service.config import Settings
-from service.store.clock import as_utc, database_now
+from service.store.clock import database_now
 from service.store.models import BATCH_STATES, Batch
 
 router = APIRouter(prefix="/v1", tags=["batches"])
@@ -118,11 +124,10 @@ def list_batches(
     session: Session = Depends(get_session),
     caller: Caller = Depends(any_key),
 ) -> dict[str, Any]:
-    after = _cursor(cursor, 3)
-    before = None
-    if after is not None:
-        micros, high, low = after
-        before = (datetime.fromtimestamp(micros / 1e6, UTC), f"{high:012x}{low:012x}")
+    try:
+        before = decode_listing_cursor(cursor) if cursor is not None else None
+    except CursorInvalid as exc:
+        raise ProblemError(422, str(exc), kind="invalid-cursor") from None
     if created_after is not None and created_after.tzinfo is None:
         created_after = created_after.replace(tzinfo=UTC)
     rows, following = batches.list_batches(
@@ -134,11 +139,7 @@ def list_batches(
         before=before,
         limit=limit,
     )
-    next_cursor = None
-    if following is not None:
-        at, batch_id = following
-        micros = round(as_utc(at).timestamp() * 1e6)
-        next_cursor = encode_cursor(micros, int(batch_id[:12], 16), int(batch_id[12:], 16))
+    next_cursor = encode_listing_cursor(*following) if following is not None else None
     return {
         "batches": [_status(session, request, batch) for batch in rows],
         "next_cursor": next_cursor,
