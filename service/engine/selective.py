@@ -4,19 +4,22 @@ Given cross-fitted (confidence, correct) pairs of labeled items, choose the
 lowest confidence threshold t such that, with probability at least 1 - delta
 over the labeled sample, the accuracy of occurrences with confidence >= t is
 at least the target. Learn-then-Test (Angelopoulos, Bates, Candès, Jordan &
-Lei 2021) with fixed-sequence testing: candidate thresholds are visited from
-the highest confidence down; at each, H0 "accuracy of the selected items <
+Lei 2021) with fixed-sequence testing: a fixed grid of thresholds
+(CANDIDATE_THRESHOLDS) is visited from the strictest down; at each, H0 "accuracy of the selected items <
 target" is tested with the exact binomial tail of the errors among the n
 selected (the risk bound of selective classification with guaranteed risk,
 Geifman & El-Yaniv 2017); the walk stops at the first test that fails, and
 the last threshold that passed is returned. Fixed-sequence testing controls the
 family-wise error at delta without splitting it between thresholds.
 
-The walk starts where enough items are selected for a test to pass at all
-(zero errors among n with (target)^n <= delta); that start depends on the
-confidences only, not on which items are right, so the guarantee holds
-conditionally on the confidences. When no threshold passes there are too few
-labels: the result says so and falls back to a conservative threshold.
+Fixed-sequence testing stops at the first failure, so the walk starts where a
+test has power: at the first threshold selecting `design_size` items, the fewest for which
+a sample with half the tolerated error rate would pass (77 for target 0.95,
+delta 0.1), or at all items when there are fewer. That start depends on the
+number of labels and the confidences only, not on which items are right, so the
+guarantee holds conditionally on the confidences. When no threshold passes
+there are too few labels: the result says so and falls back to a conservative
+threshold.
 """
 
 from __future__ import annotations
@@ -31,11 +34,24 @@ from .types import DEFAULT_TARGET_ACCURACY
 from .types import DEFAULT_TARGET_DELTA as DEFAULT_DELTA
 
 
+# The thresholds tested, strictest first: fixed before seeing any data, as
+# fixed-sequence testing requires; 0.005 apart, so a threshold loses little.
+CANDIDATE_THRESHOLDS = np.round(np.arange(0.995, 0.0, -0.005), 3)
+
+
 def minimum_selected(target_accuracy: float, delta: float) -> int:
     """The fewest selected items that can certify the target: all right and target^n <= delta."""
     if not 0 < target_accuracy < 1 or not 0 < delta < 1:
         raise ValueError("target accuracy and delta must lie in (0, 1)")
     return math.ceil(math.log(delta) / math.log(target_accuracy))
+
+
+def design_size(target_accuracy: float, delta: float) -> int:
+    """Fewest items for which half the tolerated error rate would pass the test."""
+    size = minimum_selected(target_accuracy, delta)
+    while binomial_p_value(int(size * (1 - target_accuracy) / 2), size, target_accuracy) > delta:
+        size += 1
+    return size
 
 
 def binomial_p_value(errors: int, selected: int, target_accuracy: float) -> float:
@@ -94,24 +110,18 @@ def choose_threshold(
         raise ValueError("one correctness flag per confidence")
     needed = minimum_selected(target_accuracy, delta)
     fallback = target_accuracy if fallback is None else fallback
-    order = np.argsort(-confidence, kind="stable")
-    ranked = confidence[order]
-    errors = np.cumsum(~correct[order])
-    chosen: int | None = None  # number of items selected at the chosen threshold
-    n = len(ranked)
-    # candidate thresholds: each distinct confidence, highest first (ties select together)
-    position = 0
-    while position < n:
-        end = position
-        while end + 1 < n and ranked[end + 1] == ranked[position]:
-            end += 1
-        selected = end + 1
-        position = end + 1
-        if selected < needed:
+    n = len(confidence)
+    start = max(needed, min(n, design_size(target_accuracy, delta)))
+    chosen: float | None = None
+    for threshold in CANDIDATE_THRESHOLDS:
+        above = confidence >= threshold
+        selected = int(above.sum())
+        if selected < start:
             continue
-        if binomial_p_value(int(errors[end]), selected, target_accuracy) > delta:
+        errors = int(selected - correct[above].sum())
+        if binomial_p_value(errors, selected, target_accuracy) > delta:
             break
-        chosen = selected
+        chosen = float(threshold)
     if chosen is None:
         above = confidence >= fallback
         return SelectiveThreshold(
@@ -124,14 +134,14 @@ def choose_threshold(
             coverage=float(above.mean()) if n else 0.0,
             selected_accuracy=float(correct[above].mean()) if above.any() else None,
         )
-    threshold = float(ranked[chosen - 1])
+    above = confidence >= chosen
     return SelectiveThreshold(
-        threshold=threshold,
+        threshold=chosen,
         guaranteed=True,
         target_accuracy=target_accuracy,
         delta=delta,
         labels=n,
         needed=needed,
-        coverage=chosen / n,
-        selected_accuracy=1.0 - float(errors[chosen - 1]) / chosen,
+        coverage=float(above.mean()),
+        selected_accuracy=float(correct[above].mean()),
     )
