@@ -5,11 +5,12 @@ lowest confidence threshold t such that, with probability at least 1 - delta
 over the labeled sample, the accuracy of occurrences with confidence >= t is
 at least the target. Learn-then-Test (Angelopoulos, Bates, Candès, Jordan &
 Lei 2021) with fixed-sequence testing: a fixed grid of thresholds
-(CANDIDATE_THRESHOLDS) is visited from the strictest down; at each, H0 "accuracy of the selected items <
-target" is tested with the exact binomial tail of the errors among the n
-selected (the risk bound of selective classification with guaranteed risk,
-Geifman & El-Yaniv 2017); the walk stops at the first test that fails, and
-the last threshold that passed is returned. Fixed-sequence testing controls the
+(CANDIDATE_THRESHOLDS) is visited from the strictest down; at each, H0
+"accuracy of the selected items < target" is tested with the exact binomial
+tail of the errors among the n selected (the risk bound of selective
+classification with guaranteed risk, Geifman & El-Yaniv 2017); the walk stops
+at the first test that fails, and the last threshold that passed is returned.
+Fixed-sequence testing controls the
 family-wise error at delta without splitting it between thresholds.
 
 Fixed-sequence testing stops at the first failure, so the walk starts where a
@@ -32,7 +33,6 @@ from scipy.stats import binom
 
 from .types import DEFAULT_TARGET_ACCURACY
 from .types import DEFAULT_TARGET_DELTA as DEFAULT_DELTA
-
 
 # The thresholds tested, strictest first: fixed before seeing any data, as
 # fixed-sequence testing requires; 0.005 apart, so a threshold loses little.
