@@ -12,6 +12,7 @@ from typing import Any
 
 _EXPORTS: dict[str, str] = {
     "Assignment": "assignment",
+    "CalibrationProposal": "calibration",
     "CalibrationReport": "calibration",
     "Candidate": "assignment",
     "ContextEncoder": "encoder",
@@ -31,7 +32,7 @@ _EXPORTS: dict[str, str] = {
     "InventoryError": "errors",
     "InventorySettings": "types",
     "InventorySpec": "types",
-    "MIN_CALIBRATION_LABELS": "trust",
+    "MIN_CALIBRATION_LABELS": "calibration",
     "MissingSenseModel": "outliers",
     "NearestEvidence": "prototypes",
     "Occurrence": "types",
@@ -53,7 +54,8 @@ _EXPORTS: dict[str, str] = {
     "WordWeight": "rationale",
     "assign": "assignment",
     "calibrate_book": "calibration",
-    "calibration_rows": "trust",
+    "propose_calibration": "calibration",
+    "calibration_rows": "calibration",
     "choose_threshold": "selective",
     "confidences_and_hits": "calibration",
     "conformal_p_value": "outliers",

@@ -22,66 +22,18 @@ from typing import Literal
 import numpy as np
 
 from .assignment import DEFAULT_TEMPERATURE
-from .calibration import confidences_and_hits, expected_calibration_error, fit_temperature
+from .calibration import (
+    calibration_rows,
+    confidences_and_hits,
+    expected_calibration_error,
+    fit_temperature,
+)
 from .outliers import MissingSenseModel, fit_missing_sense
-from .prototypes import HeldOutRow, PrototypeBook
+from .prototypes import PrototypeBook
 from .selective import SelectiveThreshold, choose_threshold
 from .types import InventorySettings
 
-# A temperature is fitted (here and by `whichsense calibrate`) only from at least
-# this many cross-fitted items of terms with two or more senses, covering at least
-# MIN_SENSE_SHARE of those terms' senses: fewer make a fit that swings wildly.
-MIN_CALIBRATION_LABELS = 30
-MIN_SENSE_SHARE = 0.5
-
 TemperatureSource = Literal["inventory", "fitted", "default"]
-
-
-@dataclass(frozen=True)
-class CalibrationRows:
-    """Cross-fitted score rows of multi-sense terms, with the sense each item carries."""
-
-    scores: list[np.ndarray]
-    gold: list[int]
-    senses_labeled: int
-    senses_total: int
-
-    @property
-    def labels(self) -> int:
-        return len(self.gold)
-
-    def enough(self) -> bool:
-        return (
-            self.labels >= MIN_CALIBRATION_LABELS
-            and self.senses_total > 0
-            and self.senses_labeled >= MIN_SENSE_SHARE * self.senses_total
-        )
-
-    def shortfall(self) -> str | None:
-        """Why a fit would not be trusted, in words; None when there are enough labels."""
-        if self.enough():
-            return None
-        return (
-            f"{self.labels} labeled items cover {self.senses_labeled} of {self.senses_total} "
-            f"senses of terms with two or more senses; a fit needs at least "
-            f"{MIN_CALIBRATION_LABELS} items covering at least {MIN_SENSE_SHARE:.0%} of the senses"
-        )
-
-
-def calibration_rows(book: PrototypeBook, rows: list[HeldOutRow] | None = None) -> (
-        CalibrationRows):
-    """The cross-fitted rows that calibration and the threshold are fitted on."""
-    rows = book.held_out_rows() if rows is None else rows
-    multi = [row for row in rows if len(row.scores) > 1]
-    total = sum(len(book.senses(term)) for term in book.terms() if len(book.senses(term)) > 1)
-    labeled = {(row.term, row.gold) for row in multi}
-    return CalibrationRows(
-        scores=[row.scores for row in multi],
-        gold=[row.gold for row in multi],
-        senses_labeled=len(labeled),
-        senses_total=total,
-    )
-
 
 @dataclass(frozen=True)
 class TrustFit:
