@@ -49,6 +49,9 @@ class SettingsPatch(Strict):
     review_threshold: float | None = Field(default=None, ge=0, le=1)
     abstain_threshold: float | None = Field(default=None, ge=-1, le=1)
     temperature: float | None = Field(default=None, gt=0)
+    target_accuracy: float | None = Field(default=None, gt=0, lt=1)
+    target_delta: float | None = Field(default=None, gt=0, lt=1)
+    missing_sense_rate: float | None = Field(default=None, ge=0, lt=1)
 
 
 class InventoryPatch(Strict):
