@@ -34,9 +34,9 @@ def main() -> None:
             labeled = {}
             gloss = {}
             for t in data["spec"].terms:
-                V, kinds, sids = term_items(book, t.term)
-                labeled[t.term] = [V[i] for i in range(len(kinds)) if kinds[i] == "example"]
-                gloss[t.term] = [V[i] for i in range(len(kinds)) if kinds[i] == "gloss"]
+                vecs, kinds, _ = term_items(book, t.term)
+                labeled[t.term] = [vecs[i] for i in range(len(kinds)) if kinds[i] == "example"]
+                gloss[t.term] = [vecs[i] for i in range(len(kinds)) if kinds[i] == "gloss"]
             if with_evidence:
                 for i, r in enumerate(rows):
                     if num[i] % 2 == 0 and r["sense"]:
@@ -47,22 +47,23 @@ def main() -> None:
                 cal = []
                 spread = {}
                 for term, items in labeled.items():
-                    L = np.stack(items)
+                    lab = np.stack(items)
                     loo = []
                     for j in range(len(items)):
-                        others = np.delete(L, j, axis=0)
+                        others = np.delete(lab, j, axis=0)
                         if name == "gloss":
-                            loo.append(1 - max(np.stack(gloss[term]) @ L[j]))
+                            loo.append(1 - max(np.stack(gloss[term]) @ lab[j]))
                         elif name == "gloss+1nn":
-                            loo.append(1 - max(np.stack(gloss[term]) @ L[j])
-                                       + (knn_distance(L[j], others, 1) if len(others) else 0.5))
+                            loo.append(1 - max(np.stack(gloss[term]) @ lab[j])
+                                       + (knn_distance(lab[j], others, 1) if len(others) else 0.5))
                         elif len(others):
-                            loo.append(knn_distance(L[j], others, k))
+                            loo.append(knn_distance(lab[j], others, k))
                     spread[term] = float(np.median(loo)) if loo else 1.0
                     cal.extend(v / spread[term] if relative else v for v in loo)
                 cal = np.array(cal)
 
-                def score(i):
+                def score(i, rows=rows, vectors=vectors, name=name, gloss=gloss,
+                          labeled=labeled, k=k, spread=spread, relative=relative):
                     term = rows[i]["term"]
                     x = vectors[i].astype(np.float64)
                     if name == "gloss":
@@ -74,7 +75,7 @@ def main() -> None:
                         s = knn_distance(x, np.stack(labeled[term]), k)
                     return s / spread[term] if relative else s
 
-                def pvalue(s):
+                def pvalue(s, cal=cal):
                     return (1 + np.sum(cal >= s)) / (len(cal) + 1)
 
                 odd_in = [i for i, n in enumerate(num) if n % 2 and rows[i]["sense"]]

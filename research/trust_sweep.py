@@ -46,8 +46,8 @@ def scores(method, term, senses, x, defs, ev, k_prior, params):
         else:
             p = d
         rows.append(p)
-    P = np.stack(rows)
-    base = P @ x
+    protos = np.stack(rows)
+    base = protos @ x
     if method == "blend":
         return base
     if method == "knn":
@@ -73,8 +73,8 @@ def scores(method, term, senses, x, defs, ev, k_prior, params):
         labeled = [v for s in senses for v in [*defs[s][1], *ev.get(s, [])]]
         if len(labeled) < 2:
             return base
-        L = np.stack(labeled)
-        r = np.sort(P @ L.T, axis=1)[:, ::-1][:, : min(k, len(labeled))].mean(axis=1)
+        lab = np.stack(labeled)
+        r = np.sort(protos @ lab.T, axis=1)[:, ::-1][:, : min(k, len(labeled))].mean(axis=1)
         return base - params[1] * r
     if method == "twochannel":
         # definition channel (gloss + examples prototype, CSLS) + contextual kNN channel over
@@ -85,17 +85,17 @@ def scores(method, term, senses, x, defs, ev, k_prior, params):
             for v in [*defs[s][1], *ev.get(s, [])]:
                 labeled.append(v)
                 owner.append(i)
-        D = np.stack([unit(np.mean([defs[s][0], *defs[s][1]], axis=0)) for s in senses])
+        dmat = np.stack([unit(np.mean([defs[s][0], *defs[s][1]], axis=0)) for s in senses])
         if len(labeled) < 2:
-            return D @ x
-        L = np.stack(labeled)
+            return dmat @ x
+        lab = np.stack(labeled)
         kk = min(k, len(labeled))
-        r_def = np.sort(D @ L.T, axis=1)[:, ::-1][:, :kk].mean(axis=1)
-        def_score = D @ x - a * r_def
-        G = L @ L.T
-        np.fill_diagonal(G, -np.inf)
-        r_item = np.sort(G, axis=1)[:, ::-1][:, : max(1, min(k, len(labeled) - 1))].mean(axis=1)
-        corrected = L @ x - a * r_item
+        r_def = np.sort(dmat @ lab.T, axis=1)[:, ::-1][:, :kk].mean(axis=1)
+        def_score = dmat @ x - a * r_def
+        gram = lab @ lab.T
+        np.fill_diagonal(gram, -np.inf)
+        r_item = np.sort(gram, axis=1)[:, ::-1][:, : max(1, min(k, len(labeled) - 1))].mean(axis=1)
+        corrected = lab @ x - a * r_item
         owner_a = np.array(owner)
         ctx = np.full(len(senses), np.nan)
         for i in range(len(senses)):
@@ -114,7 +114,7 @@ def scores(method, term, senses, x, defs, ev, k_prior, params):
         for i, s in enumerate(senses):
             others = [v for t in senses if t != s for v in [*defs[t][1], *ev.get(t, [])]]
             if others:
-                sims = np.sort(np.stack(others) @ P[i])[::-1][: k]
+                sims = np.sort(np.stack(others) @ protos[i])[::-1][: k]
                 out[i] -= a * sims.mean()
         return out
     if method == "center":
@@ -136,18 +136,19 @@ def run(data, method, k_prior, params, share, seeds=5):
     spec = data["spec"]
     defs_by_term = {}
     for t in spec.terms:
-        V, kinds, sids = term_items(book, t.term)
+        vecs, kinds, sids = term_items(book, t.term)
         defs = {}
         for s in t.senses:
-            g = [V[i] for i in range(len(kinds)) if kinds[i] == "gloss" and sids[i] == s.sense_id]
-            ex = [V[i] for i in range(len(kinds)) if kinds[i] == "example" and sids[i] == s.sense_id]
+            mine = [i for i in range(len(kinds)) if sids[i] == s.sense_id]
+            g = [vecs[i] for i in mine if kinds[i] == "gloss"]
+            ex = [vecs[i] for i in mine if kinds[i] == "example"]
             defs[s.sense_id] = (g[0], ex)
         defs_by_term[t.term] = (tuple(s.sense_id for s in t.senses), defs)
     num = [int(r["id"].split("-")[-1]) for r in rows]
     even = [i for i, n in enumerate(num) if n % 2 == 0 and rows[i]["sense"]]
     odd = [i for i, n in enumerate(num) if n % 2 == 1 and rows[i]["sense"]]
     total = sum(1 for r in rows if r["sense"])
-    want = int(round(share * total))
+    want = round(share * total)
     accs = []
     for seed in range(seeds if 0 < want < len(even) else 1):
         rng = np.random.default_rng(seed)

@@ -27,6 +27,10 @@ import numpy as np
 from .prototypes import PrototypeBook
 from .types import DEFAULT_MISSING_SENSE_RATE
 
+# Calibration scores come from at most this many labeled items (every n-th kept),
+# so a re-fit stays cheap when a whole corpus is evidence.
+MAX_CALIBRATION_ITEMS = 5000
+
 
 def _gloss_distance(glosses: np.ndarray, vector: np.ndarray) -> float:
     if not len(glosses):
@@ -99,17 +103,32 @@ class OccurrenceScorer:
         return gloss + _neighbour_distance(neighbours, vector, gloss)
 
 
-def calibration_scores(book: PrototypeBook) -> np.ndarray:
-    """Leave-one-out scores of every labeled occurrence (examples and evidence), pooled."""
+def calibration_scores(book: PrototypeBook, max_items: int = MAX_CALIBRATION_ITEMS) -> (
+        np.ndarray):
+    """Leave-one-out scores of the labeled occurrences (examples and evidence), pooled;
+    every n-th item when there are more than `max_items` (deterministic)."""
+    plan = [(term, len(book.contextual_items(term)[0])) for term in book.terms()]
+    total = sum(count for _, count in plan)
+    step = max(1, -(-total // max_items)) if total else 1
     scores: list[float] = []
-    for term in book.terms():
+    seen = 0
+    for term, count in plan:
+        if not count:
+            continue
         glosses = book.gloss_vectors(term)
         vectors, _, _ = book.contextual_items(term)
-        for index in range(len(vectors)):
+        picked = [i for i in range(count) if (seen + i) % step == 0]
+        seen += count
+        for index in picked:
             vector = vectors[index]
             gloss = _gloss_distance(glosses, vector)
-            others = np.delete(vectors, index, axis=0)
-            scores.append(gloss + _neighbour_distance(others, vector, gloss))
+            if count > 1:
+                sims = vectors @ vector
+                sims[index] = -np.inf  # the item is no neighbour of itself
+                neighbour = 1.0 - float(sims.max())
+            else:
+                neighbour = gloss
+            scores.append(gloss + neighbour)
     return np.sort(np.asarray(scores, np.float64))
 
 

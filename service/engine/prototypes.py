@@ -468,10 +468,12 @@ class PrototypeBook:
         for term, index in plan[::step]:
             wanted.setdefault(term, []).append(index)
         rows: list[HeldOutRow] = []
+        k = DEFAULT_HUB_NEIGHBOURS
         for term, indices in wanted.items():
             sense_ids = self.senses(term)
             vectors, owners, kinds = self.contextual_items(term)
             matrix = self.matrix(term).astype(np.float64)
+            base = matrix @ vectors.T  # (senses, items): computed once per term
             for index in indices:
                 vector, sense_id, kind = vectors[index], owners[index], kinds[index]
                 position = sense_ids.index(sense_id)
@@ -482,10 +484,16 @@ class PrototypeBook:
                 )
                 prototypes = matrix.copy()
                 prototypes[position] = held if held is not None else 0.0
-                others = np.delete(vectors, index, axis=0)
-                penalty = self.hub_weight * hub_penalty(
-                    prototypes, others, DEFAULT_HUB_NEIGHBOURS
-                )
+                sims = base.copy()
+                sims[position] = prototypes[position] @ vectors.T
+                sims = np.delete(sims, index, axis=1)  # the item is no neighbour of itself
+                if sims.shape[1] < 2:
+                    penalty = np.zeros(len(sense_ids))
+                else:
+                    top = min(k, sims.shape[1])
+                    penalty = self.hub_weight * (
+                        -np.partition(-sims, top - 1, axis=1)[:, :top]
+                    ).mean(axis=1)
                 similarities = prototypes @ vector
                 rows.append(
                     HeldOutRow(term, kind, position, similarities, similarities - penalty)

@@ -90,3 +90,28 @@ def test_a_fit_that_worsens_held_out_calibration_is_refused(monkeypatch):
     assert "worse" in (proposal.refused or "")
     assert proposal.ece_after is not None and proposal.ece_before is not None
     assert proposal.ece_after > proposal.ece_before
+
+
+def test_held_out_rows_equal_rebuilding_the_book_without_the_item():
+    # cross-fitting: an item's row is what a book that never saw it would score
+    rng = np.random.default_rng(8)
+    senses = ["f", "m", "f", "m", "f", "m", "m"]
+    vectors = np.stack([CENTRES[s] + rng.normal(scale=0.3, size=3) for s in senses])
+    vectors /= np.linalg.norm(vectors, axis=1, keepdims=True)
+
+    def build(keep: list[int]) -> PrototypeBook:
+        inventory = InventorySpec(
+            "trust", 1, (TermSpec("bass", (SenseSpec("f", "fish"), SenseSpec("m", "music"))),)
+        )
+        evidence = [Evidence(i + 1, "bass", senses[i], "a bass", 2, 6) for i in keep]
+        return PrototypeBook.build(
+            FixedEncoder(), inventory, evidence, evidence_vectors=vectors[keep]
+        )
+
+    rows = build(list(range(len(senses)))).held_out_rows()
+    assert [row.gold for row in rows] == [0 if s == "f" else 1 for s in senses]
+    for i, row in enumerate(rows):
+        rebuilt = build([j for j in range(len(senses)) if j != i])
+        similarities = rebuilt.similarities("bass", vectors[i])[0]
+        np.testing.assert_allclose(row.similarities, similarities, atol=1e-5)
+        np.testing.assert_allclose(row.scores, rebuilt.scores("bass", similarities), atol=1e-5)
