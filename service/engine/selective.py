@@ -123,25 +123,31 @@ def choose_threshold(
             break
         chosen = float(threshold)
     if chosen is None:
-        above = confidence >= fallback
-        return SelectiveThreshold(
-            threshold=fallback,
-            guaranteed=False,
-            target_accuracy=target_accuracy,
-            delta=delta,
-            labels=n,
-            needed=needed,
-            coverage=float(above.mean()) if n else 0.0,
-            selected_accuracy=float(correct[above].mean()) if above.any() else None,
-        )
-    above = confidence >= chosen
+        return selection_at(fallback, confidence, correct, False, target_accuracy, delta, needed)
+    return selection_at(chosen, confidence, correct, True, target_accuracy, delta, needed)
+
+
+def selection_at(
+    threshold: float,
+    confidence: np.ndarray,
+    correct: np.ndarray,
+    guaranteed: bool,
+    target_accuracy: float,
+    delta: float,
+    needed: int,
+) -> SelectiveThreshold:
+    """What the labels say about assigning at `threshold` (coverage, accuracy)."""
+    confidence = np.asarray(confidence, np.float64).reshape(-1)
+    correct = np.asarray(correct, bool).reshape(-1)
+    above = confidence >= threshold
+    n = len(confidence)
     return SelectiveThreshold(
-        threshold=chosen,
-        guaranteed=True,
+        threshold=float(threshold),
+        guaranteed=guaranteed,
         target_accuracy=target_accuracy,
         delta=delta,
         labels=n,
         needed=needed,
-        coverage=float(above.mean()),
-        selected_accuracy=float(correct[above].mean()),
+        coverage=float(above.mean()) if n else 0.0,
+        selected_accuracy=float(correct[above].mean()) if above.any() else None,
     )

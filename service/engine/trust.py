@@ -30,7 +30,7 @@ from .calibration import (
 )
 from .outliers import MissingSenseModel, fit_missing_sense
 from .prototypes import PrototypeBook
-from .selective import SelectiveThreshold, choose_threshold
+from .selective import SelectiveThreshold, choose_threshold, selection_at
 from .types import InventorySettings
 
 TemperatureSource = Literal["inventory", "fitted", "default"]
@@ -82,16 +82,8 @@ def fit_trust(book: PrototypeBook, settings: InventorySettings) -> TrustFit:
         confidence, hits = np.zeros(0), np.zeros(0, bool)
         accuracy = ece = None
     if settings.target_accuracy is None:
-        above = confidence >= settings.review_threshold
-        review = SelectiveThreshold(
-            threshold=settings.review_threshold,
-            guaranteed=False,
-            target_accuracy=0.0,
-            delta=1.0,
-            labels=rows.labels,
-            needed=0,
-            coverage=float(above.mean()) if rows.labels else 0.0,
-            selected_accuracy=float(hits[above].mean()) if above.any() else None,
+        review = selection_at(
+            settings.review_threshold, confidence, hits, False, 0.0, 1.0, 0
         )
     else:
         review = choose_threshold(

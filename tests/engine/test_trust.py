@@ -9,8 +9,8 @@ from service.engine import calibration
 from service.engine.calibration import calibration_rows, propose_calibration
 from service.engine.prototypes import PrototypeBook
 from service.engine.trust import fit_trust
-from service.engine.types import Evidence, InventorySettings, InventorySpec, SenseSpec, TermSpec
-from tests.engine.test_calibration import FixedEncoder
+from service.engine.types import InventorySettings
+from tests.engine.test_calibration import book_with_evidence
 
 CENTRES = {"f": np.array([1.0, 0.15, 0.2]), "m": np.array([0.15, 1.0, 0.2])}
 
@@ -20,13 +20,7 @@ def labeled_book(count: int, seed: int, noise: float = 0.3) -> PrototypeBook:
     senses = ["f" if i % 2 else "m" for i in range(count)]
     vectors = np.stack([CENTRES[s] + rng.normal(scale=noise, size=3) for s in senses])
     vectors /= np.linalg.norm(vectors, axis=1, keepdims=True)
-    inventory = InventorySpec(
-        "trust", 1, (TermSpec("bass", (SenseSpec("f", "fish"), SenseSpec("m", "music"))),)
-    )
-    evidence = [
-        Evidence(i, "bass", sense, "a bass", 2, 6) for i, sense in enumerate(senses, start=1)
-    ]
-    return PrototypeBook.build(FixedEncoder(), inventory, evidence, evidence_vectors=vectors)
+    return book_with_evidence(vectors, senses)
 
 
 def test_many_clean_labels_certify_the_target_and_fit_a_temperature():
@@ -100,13 +94,7 @@ def test_held_out_rows_equal_rebuilding_the_book_without_the_item():
     vectors /= np.linalg.norm(vectors, axis=1, keepdims=True)
 
     def build(keep: list[int]) -> PrototypeBook:
-        inventory = InventorySpec(
-            "trust", 1, (TermSpec("bass", (SenseSpec("f", "fish"), SenseSpec("m", "music"))),)
-        )
-        evidence = [Evidence(i + 1, "bass", senses[i], "a bass", 2, 6) for i in keep]
-        return PrototypeBook.build(
-            FixedEncoder(), inventory, evidence, evidence_vectors=vectors[keep]
-        )
+        return book_with_evidence(vectors[keep], [senses[i] for i in keep])
 
     rows = build(list(range(len(senses)))).held_out_rows()
     assert [row.gold for row in rows] == [0 if s == "f" else 1 for s in senses]
