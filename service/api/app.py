@@ -31,6 +31,7 @@ from service.api.routes import (
     health,
     home,
     inventories,
+    quality,
     review,
 )
 from service.config import Settings
@@ -146,6 +147,7 @@ def create_app(settings: Settings, *, check_migrated: bool = True) -> FastAPI:
     app.include_router(disambiguate.router)
     app.include_router(audit.router)
     app.include_router(review.router)
+    app.include_router(quality.router)
     pages.install(app)
     _mount_docs(app)
     return app

@@ -59,6 +59,9 @@ class SettingsPatch(Strict):
         default=None, ge=ABSTAIN_THRESHOLD_BOUNDS[0], le=ABSTAIN_THRESHOLD_BOUNDS[1]
     )
     temperature: float | None = Field(default=None, gt=0)
+    target_accuracy: float | None = Field(default=None, gt=0, lt=1)
+    target_delta: float | None = Field(default=None, gt=0, lt=1)
+    missing_sense_rate: float | None = Field(default=None, ge=0, lt=1)
 
 
 class InventoryPatch(Strict):

@@ -35,6 +35,9 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
                         help="folder for summary.json and report.html")
     parser.add_argument("--target-accuracy", type=float, default=0.9,
                         help="accuracy the review threshold must reach (default 0.9)")
+    parser.add_argument("--evidence", type=Path, metavar="LABELED",
+                        help="labeled occurrences (JSON Lines) to use as evidence besides any "
+                        "stored; evaluated items among them are left out")
     parser.add_argument("--no-evidence", action="store_true",
                         help="ignore a stored inventory's evidence (glosses and examples only)")
     parser.add_argument("--limit", type=int, metavar="N", help="evaluate the first N only")
@@ -99,12 +102,19 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     print("whichsense evaluate: loading the labeled file, inventory and model ...",
           file=sys.stderr, flush=True)
     from service.engine import SpanQuery
+    from service.evaluation.evidence_source import labeled_evidence, restrict_to_inventory
     from service.evaluation.labeled import read_labeled
-    from service.evaluation.report import Outcome, describe_model, summarise, write_report
+    from service.evaluation.report import (
+        Outcome,
+        describe_model,
+        summarise,
+        trust_summary,
+        write_report,
+    )
     from service.tagging.engines import build_disambiguator
 
     started = time.perf_counter()
-    items = list(read_labeled(args.labeled))
+    items = list(read_labeled(args.labeled, allow_missing=True))
     if args.limit is not None:
         items = items[: max(0, args.limit)]
     spec, evidence, source = load_inventory(
@@ -115,6 +125,12 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     if not matched:
         print("whichsense: no labeled occurrence names a term of the inventory", file=sys.stderr)
         return 2
+    if args.evidence is not None:
+        extra = restrict_to_inventory(
+            labeled_evidence(read_labeled(args.evidence, allow_missing=True),
+                             first_id=max((e.evidence_id for e in evidence), default=0) + 1),
+            spec, skipped)
+        evidence = [*evidence, *extra]
     evidence = without_labeled_items(evidence, items, skipped)
     print(f"whichsense evaluate: scoring {len(matched)} labeled occurrences ...", file=sys.stderr,
           flush=True)
@@ -123,19 +139,26 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     queries = [SpanQuery(item.text, item.start, item.end, term, document_id=item.occurrence_id)
                for item, term in matched]
     results = disambiguator.classify_spans(queries)
-    outcomes = [
-        Outcome(
-            occurrence_id=item.occurrence_id, term=term, gold=item.sense,
+    every = [
+        (item.missing_sense, Outcome(
+            occurrence_id=item.occurrence_id, term=term, gold=item.sense or "(missing sense)",
             best=result.candidates[0].sense_id, served=result.sense_id,
             confidence=float(result.confidence), status=result.status,
             text=item.text, start=item.start, end=item.end,
-        )
+        ))
         for (item, term), result in zip(matched, results, strict=True)
     ]
+    outcomes = [outcome for missing, outcome in every if not missing]
+    missing = [outcome for flagged, outcome in every if flagged]
+    if not outcomes:
+        print("whichsense: every labeled occurrence is of a missing sense; nothing to score",
+              file=sys.stderr)
+        return 2
     senses: dict[str, Sequence[str]] = {
         term.term: [sense.sense_id for sense in term.senses] for term in spec.terms
     }
     summary = summarise(outcomes, senses, target_accuracy=args.target_accuracy)
+    summary["trust"] = trust_summary(outcomes, missing, disambiguator.trust.to_json())
     meta = {
         "labeled_file": str(args.labeled),
         "inventory": spec.name,
@@ -159,5 +182,23 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
             print(warning, file=sys.stderr)
     else:
         print(f"no review threshold reaches {args.target_accuracy:.0%} accuracy")
+    trust = summary["trust"]
+    listed, fit = trust["in_inventory"], trust["fit"]
+    assigned_accuracy = listed["assigned_accuracy"]
+    print(f"served: {listed['assigned_share']:.1%} assigned at accuracy "
+          f"{assigned_accuracy if assigned_accuracy is None else round(assigned_accuracy, 3)}, "
+          f"{listed['review_share']:.1%} to review, {listed['abstained_share']:.1%} wrongly "
+          f"abstained; ECE {listed['ece']:.3f}")
+    review = fit["review"]
+    if review["guaranteed"]:
+        print(f"review threshold {review['threshold']:.3f} guarantees accuracy "
+              f">= {review['target_accuracy']:.0%} with probability {1 - review['delta']:.0%} "
+              f"({review['labels']} labels)")
+    else:
+        print(f"review threshold {review['threshold']:.3f} is a conservative default: "
+              f"{fit['too_few_labels'] or 'the labels do not certify the target accuracy'}")
+    if missing:
+        caught = trust["missing_sense"]["abstained_share"]
+        print(f"missing-sense occurrences abstained: {caught:.1%} of {len(missing)}")
     print(f"wrote {summary_path} and {html_path}")
     return 0

@@ -9,12 +9,18 @@ development slice on the rows assign() sees by default (evidence weight k = 4,
 document consistency 0.5, no sense prior; docs/measurements.md). Cosines of
 contextual vectors sit in a narrow band, hence a small temperature.
 
+The softmax sees *scores*: the cosines minus each prototype's hubness penalty
+(CSLS, see prototypes.py) when the caller passes them, the cosines otherwise.
+
 Status, in order of precedence:
-- `abstained`: the best cosine is below the inventory's abstain_threshold, so
-  the occurrence is probably a sense the inventory lacks. This applies to
-  one-sense terms too: an occurrence far from the only listed sense is exactly
-  the case a curator wants to hear about.
-- `review`: the top probability is below review_threshold.
+- `abstained`: the occurrence probably carries a sense the inventory lacks:
+  the missing-sense test flagged it (a conformal p-value at most the
+  inventory's missing_sense_rate, see outliers.py), or its best cosine is
+  below abstain_threshold. This applies to one-sense terms too: an occurrence
+  far from the only listed sense is exactly the case a curator wants to hear about.
+- `review`: the top probability is below the review threshold: the one the
+  trust fit chose for the inventory's target accuracy (trust.py) when given,
+  else the inventory's review_threshold.
 - `assigned` otherwise. A one-sense term that is not abstained is assigned with
   confidence 1.0 and margin 1.0.
 """
@@ -74,6 +80,7 @@ class Assignment:
     margin: float
     status: Status
     candidates: tuple[Candidate, ...]  # best first
+    missing_sense_p: float | None = None  # conformal p-value that the sense is listed
 
     @property
     def best_sense(self) -> str:
@@ -87,14 +94,25 @@ def assign(
     settings: InventorySettings,
     temperature: float | None = None,
     log_prior: np.ndarray | None = None,
+    *,
+    scores: np.ndarray | None = None,
+    review_threshold: float | None = None,
+    missing_sense_p: float | None = None,
+    missing_sense: bool = False,
 ) -> Assignment:
-    """Decide among `sense_ids` given their cosine `similarities` to the occurrence."""
+    """Decide among `sense_ids` given their cosine `similarities` to the occurrence
+    (and the `scores` the softmax should see, when they differ from the cosines)."""
     similarities = np.asarray(similarities, np.float64).reshape(-1)
     if len(similarities) != len(sense_ids) or not len(sense_ids):
         raise ValueError("one similarity per sense, at least one sense")
+    scores = similarities if scores is None else np.asarray(scores, np.float64).reshape(-1)
+    if len(scores) != len(similarities):
+        raise ValueError("one score per similarity")
     if temperature is None:
         temperature = settings.temperature or DEFAULT_TEMPERATURE
-    probabilities = softmax(similarities, temperature, log_prior)
+    if review_threshold is None:
+        review_threshold = settings.review_threshold
+    probabilities = softmax(scores, temperature, log_prior)
     order = np.argsort(-probabilities, kind="stable")
     candidates = tuple(
         Candidate(sense_ids[i], float(similarities[i]), float(probabilities[i])) for i in order
@@ -102,7 +120,7 @@ def assign(
     best = candidates[0]
     confidence = best.probability
     margin = best.probability - candidates[1].probability if len(candidates) > 1 else 1.0
-    if float(similarities.max()) < settings.abstain_threshold:
-        return Assignment(None, confidence, margin, "abstained", candidates)
-    status: Status = "review" if confidence < settings.review_threshold else "assigned"
-    return Assignment(best.sense_id, confidence, margin, status, candidates)
+    if missing_sense or float(similarities.max()) < settings.abstain_threshold:
+        return Assignment(None, confidence, margin, "abstained", candidates, missing_sense_p)
+    status: Status = "review" if confidence < review_threshold else "assigned"
+    return Assignment(best.sense_id, confidence, margin, status, candidates, missing_sense_p)

@@ -5,9 +5,15 @@ softmax(similarities / T) minimises the negative log-likelihood of held-out
 labels. Candidate sets differ in size from term to term, so inputs are lists
 of 1-D similarity arrays with the index of the right sense in each.
 
-Leave-one-out rows rebuild the held-out item's prototype with the same blend
-(PrototypeBook.prototype, evidence weight n/(n+k)) that scoring uses, so a
-refit follows any change of the prototype rule.
+Cross-fitted rows (PrototypeBook.held_out_rows) rebuild the held-out item's
+prototype and hub penalty without it, with the same rule scoring uses, so a
+refit follows any change of the prototype rule. Labeled items are the example
+sentences and the evidence.
+
+A proposed temperature is judged before it is stored (propose_calibration):
+it needs at least MIN_CALIBRATION_LABELS items covering enough senses, and its
+calibration error on held-out rows (two-fold: fitted on one half, measured on
+the other) must not be worse than the current temperature's.
 
 Expected calibration error uses equal-width confidence bins (Naeini et al.
 2015; Guo et al. 2017): sum over bins of |accuracy - mean confidence| weighted
@@ -23,7 +29,7 @@ import numpy as np
 from scipy.optimize import minimize_scalar
 
 from .assignment import softmax
-from .prototypes import DEFAULT_PRIOR_SMOOTHING, PrototypeBook
+from .prototypes import DEFAULT_PRIOR_SMOOTHING, HeldOutRow, PrototypeBook
 
 MIN_TEMPERATURE = 1e-3
 MAX_TEMPERATURE = 10.0
@@ -160,6 +166,59 @@ def expected_calibration_error(confidence: np.ndarray, hit: np.ndarray, n_bins: 
     )
 
 
+# A temperature is fitted (here and by `whichsense calibrate`) only from at least
+# this many cross-fitted items of terms with two or more senses, covering at least
+# MIN_SENSE_SHARE of those terms' senses: fewer make a fit that swings wildly.
+MIN_CALIBRATION_LABELS = 30
+MIN_SENSE_SHARE = 0.5
+
+
+@dataclass(frozen=True)
+class CalibrationRows:
+    """Cross-fitted score rows of multi-sense terms, with the sense each item carries."""
+
+    scores: list[np.ndarray]
+    gold: list[int]
+    senses_labeled: int
+    senses_total: int
+
+    @property
+    def labels(self) -> int:
+        return len(self.gold)
+
+    def enough(self) -> bool:
+        return (
+            self.labels >= MIN_CALIBRATION_LABELS
+            and self.senses_total > 0
+            and self.senses_labeled >= MIN_SENSE_SHARE * self.senses_total
+        )
+
+    def shortfall(self) -> str | None:
+        """Why a fit would not be trusted, in words; None when there are enough labels."""
+        if self.enough():
+            return None
+        return (
+            f"{self.labels} labeled items cover {self.senses_labeled} of {self.senses_total} "
+            f"senses of terms with two or more senses; a fit needs at least "
+            f"{MIN_CALIBRATION_LABELS} items covering at least {MIN_SENSE_SHARE:.0%} of the senses"
+        )
+
+
+def calibration_rows(book: PrototypeBook, rows: list[HeldOutRow] | None = None) -> (
+        CalibrationRows):
+    """The cross-fitted rows that calibration and the threshold are fitted on."""
+    rows = book.held_out_rows() if rows is None else rows
+    multi = [row for row in rows if len(row.scores) > 1]
+    total = sum(len(book.senses(term)) for term in book.terms() if len(book.senses(term)) > 1)
+    labeled = {(row.term, row.gold) for row in multi}
+    return CalibrationRows(
+        scores=[row.scores for row in multi],
+        gold=[row.gold for row in multi],
+        senses_labeled=len(labeled),
+        senses_total=total,
+    )
+
+
 @dataclass(frozen=True)
 class CalibrationReport:
     """What fitting on an inventory's own labels gave, for the curator to read."""
@@ -211,25 +270,101 @@ def calibrate_book(
     book: PrototypeBook,
     default_temperature: float,
     n_bins: int = 10,
-    *,
-    sense_prior: bool = False,
 ) -> CalibrationReport:
-    """Fit an inventory's temperature on its own labeled evidence, leave-one-out.
-
-    `sense_prior` must match the Disambiguator's (both off by default), so the
-    fitted temperature fits the rows assign() sees."""
-    rows, gold, priors = leave_one_out_similarities(book, sense_prior=sense_prior)
-    if not rows:
-        raise ValueError("no labeled evidence on terms with two or more senses")
-    temperature = fit_temperature(rows, gold, log_priors=priors)
-    before = confidences_and_hits(rows, gold, default_temperature, priors)
-    after = confidences_and_hits(rows, gold, temperature, priors)
+    """Fit an inventory's temperature on its own labeled items, cross-fitted
+    (every item scored without it), on the scores assign() sees."""
+    rows = calibration_rows(book)
+    if not rows.labels:
+        raise ValueError("no labeled items on terms with two or more senses")
+    temperature = fit_temperature(rows.scores, rows.gold)
+    before = confidences_and_hits(rows.scores, rows.gold, default_temperature)
+    after = confidences_and_hits(rows.scores, rows.gold, temperature)
     return CalibrationReport(
         temperature=temperature,
-        instances=len(gold),
-        nll_before=negative_log_likelihood(rows, gold, default_temperature, priors),
-        nll_after=negative_log_likelihood(rows, gold, temperature, priors),
+        instances=rows.labels,
+        nll_before=negative_log_likelihood(rows.scores, rows.gold, default_temperature),
+        nll_after=negative_log_likelihood(rows.scores, rows.gold, temperature),
         ece_before=expected_calibration_error(*before, n_bins=n_bins),
         ece_after=expected_calibration_error(*after, n_bins=n_bins),
         accuracy=float(after[1].mean()),
+    )
+
+
+@dataclass(frozen=True)
+class CalibrationProposal:
+    """A temperature fit and whether it may be stored; figures are held-out (two-fold)."""
+
+    current_temperature: float
+    temperature: float | None  # None when refused for too few labels
+    labels: int
+    accuracy: float | None
+    ece_before: float | None  # held-out ECE at the current temperature
+    ece_after: float | None  # held-out ECE with temperatures fitted on the other half
+    refused: str | None  # why it must not be stored, in words; None when it may be
+
+    @property
+    def accepted(self) -> bool:
+        return self.refused is None
+
+    def to_json(self) -> dict[str, object]:
+        def rounded(value: float | None) -> float | None:
+            return None if value is None else round(value, 6)
+
+        return {
+            "accepted": self.accepted,
+            "refused": self.refused,
+            "labels": self.labels,
+            "accuracy": rounded(self.accuracy),
+            "temperature_before": rounded(self.current_temperature),
+            "temperature_after": rounded(self.temperature),
+            "ece_before": rounded(self.ece_before),
+            "ece_after": rounded(self.ece_after),
+        }
+
+
+def propose_calibration(
+    book: PrototypeBook, current_temperature: float, n_bins: int = 10
+) -> CalibrationProposal:
+    """Fit a temperature and judge it: refused with too few labels, or when its
+    held-out calibration error (two folds, alternating items) is worse than the
+    current temperature's."""
+    rows = calibration_rows(book)
+    shortfall = rows.shortfall()
+    if shortfall is not None:
+        return CalibrationProposal(
+            current_temperature, None, rows.labels, None, None, None, shortfall
+        )
+    halves = [list(range(0, rows.labels, 2)), list(range(1, rows.labels, 2))]
+    confidence_now: list[np.ndarray] = []
+    confidence_new: list[np.ndarray] = []
+    hits: list[np.ndarray] = []
+    for fit_on, test_on in (halves, halves[::-1]):
+        fold_t = fit_temperature(
+            [rows.scores[i] for i in fit_on], [rows.gold[i] for i in fit_on]
+        )
+        test_scores = [rows.scores[i] for i in test_on]
+        test_gold = [rows.gold[i] for i in test_on]
+        now, hit = confidences_and_hits(test_scores, test_gold, current_temperature)
+        new, _ = confidences_and_hits(test_scores, test_gold, fold_t)
+        confidence_now.append(now)
+        confidence_new.append(new)
+        hits.append(hit)
+    hit_all = np.concatenate(hits)
+    ece_before = expected_calibration_error(np.concatenate(confidence_now), hit_all, n_bins)
+    ece_after = expected_calibration_error(np.concatenate(confidence_new), hit_all, n_bins)
+    temperature = fit_temperature(rows.scores, rows.gold)
+    refused = None
+    if ece_after > ece_before:
+        refused = (
+            f"the fit would make held-out calibration error worse "
+            f"({ece_before:.4f} -> {ece_after:.4f}); the current temperature stays"
+        )
+    return CalibrationProposal(
+        current_temperature,
+        temperature,
+        rows.labels,
+        float(hit_all.mean()),
+        ece_before,
+        ece_after,
+        refused,
     )

@@ -23,8 +23,10 @@ from .consistency import DEFAULT_CONSISTENCY_WEIGHT, share_within_documents
 from .encoder import ContextEncoder, SpanEncoding
 from .errors import DocumentTooLarge, InventoryError, UnknownTerm
 from .occurrences import OccurrenceFinder
+from .outliers import OccurrenceScorer
 from .prototypes import PrototypeBook
 from .rationale import Rationale, attention_words, erasure_drops, rollout_words
+from .trust import TrustFit, fit_trust
 from .types import Document, Evidence, InventorySpec, Occurrence, Status
 
 DEFAULT_MAX_DOCUMENT_CHARS = 1_000_000
@@ -65,6 +67,7 @@ class OccurrenceResult:
     candidates: tuple[Candidate, ...]
     rationale: Rationale | None
     inventory_version: int
+    missing_sense_p: float | None = None
 
     def to_json(self) -> dict[str, object]:
         return {
@@ -80,6 +83,9 @@ class OccurrenceResult:
             "confidence": round(float(self.confidence), 4),
             "margin": round(float(self.margin), 4),
             "status": self.status,
+            "missing_sense_p": (
+                round(float(self.missing_sense_p), 4) if self.missing_sense_p is not None else None
+            ),
             "candidates": [candidate.to_json() for candidate in self.candidates],
             "rationale": self.rationale.to_json() if self.rationale is not None else None,
             "inventory_version": self.inventory_version,
@@ -152,6 +158,7 @@ class Disambiguator:
         self.max_document_chars = max_document_chars
         self.group_size = group_size
         self._terms = frozenset(prototypes.terms())
+        self.trust: TrustFit = fit_trust(prototypes, inventory.settings)
         self._tags = {
             sense.sense_id: sense.tags for spec in inventory.terms for sense in spec.senses
         }
@@ -296,11 +303,26 @@ class Disambiguator:
     def _assign(self, spans: Sequence[SpanQuery], vectors: np.ndarray) -> list[Assignment]:
         rows = self.similarities(spans, vectors)
         settings = self.inventory.settings
+        trust = self.trust
+        outlier_score = OccurrenceScorer(self.prototypes)
         assignments = []
-        for query, row in zip(spans, rows, strict=True):
+        for query, row, vector in zip(spans, rows, vectors, strict=True):
             prior = self.prototypes.log_prior(query.term) if self.sense_prior else None
             senses = self.prototypes.senses(query.term)
-            assignments.append(assign(row, senses, settings, log_prior=prior))
+            p_value = trust.missing.p_value(outlier_score(query.term, vector))
+            assignments.append(
+                assign(
+                    row,
+                    senses,
+                    settings,
+                    trust.temperature,
+                    prior,
+                    scores=self.prototypes.scores(query.term, row),
+                    review_threshold=trust.review.threshold,
+                    missing_sense_p=p_value,
+                    missing_sense=trust.missing.flags(p_value),
+                )
+            )
         return assignments
 
     def _rationale(
@@ -341,4 +363,5 @@ class Disambiguator:
             candidates=assignment.candidates,
             rationale=why,
             inventory_version=self.inventory.version,
+            missing_sense_p=assignment.missing_sense_p,
         )

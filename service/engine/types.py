@@ -43,15 +43,32 @@ class TermSpec:
 REVIEW_THRESHOLD_BOUNDS: tuple[float, float] = (0.0, 1.0)  # a confidence
 ABSTAIN_THRESHOLD_BOUNDS: tuple[float, float] = (-1.0, 1.0)  # a cosine similarity
 
+# Accuracy the automatically assigned share must reach, with probability 1 - delta
+# (engine/selective.py), and the share of in-inventory occurrences that may be
+# flagged as a missing sense (engine/outliers.py). The owners of these defaults.
+DEFAULT_TARGET_ACCURACY = 0.95
+DEFAULT_TARGET_DELTA = 0.1
+DEFAULT_MISSING_SENSE_RATE = 0.05
+
 
 @dataclass(frozen=True)
 class InventorySettings:
-    """Per-inventory decision settings; the temperature comes from calibration."""
+    """Per-inventory decision settings; the temperature comes from calibration.
+
+    With `target_accuracy` set (the default) the review threshold is chosen from
+    the inventory's labels with a guarantee, and `review_threshold` is only the
+    floor of the conservative fallback used when labels are too few; None keeps
+    the fixed `review_threshold`. `missing_sense_rate` 0 turns missing-sense
+    flagging off (the cosine floor `abstain_threshold` still applies).
+    """
 
     review_threshold: float = 0.6
     # Cosine under which no sense is assigned; measured on SemCor dev (docs/measurements.md).
     abstain_threshold: float = 0.25
     temperature: float | None = None
+    target_accuracy: float | None = DEFAULT_TARGET_ACCURACY
+    target_delta: float = DEFAULT_TARGET_DELTA
+    missing_sense_rate: float = DEFAULT_MISSING_SENSE_RATE
 
 
 @dataclass(frozen=True)

@@ -24,8 +24,10 @@ from service.wordnet.corpus import CorpusStats, corpus_evidence, is_corpus_line,
 def labeled_evidence(
     occurrences: Iterable[LabeledOccurrence], first_id: int = 1
 ) -> Iterator[Evidence]:
-    """One Evidence per labeled occurrence, source "import"."""
+    """One Evidence per labeled occurrence, source "import" (missing-sense lines skipped)."""
     for number, item in enumerate(occurrences, start=first_id):
+        if item.missing_sense:
+            continue
         yield Evidence(
             evidence_id=number,
             term=item.term,

@@ -1,8 +1,10 @@
 """Read labeled occurrences: JSON Lines of {id, text, start, end, term, sense}.
 
 `text[start:end]` (code-point offsets) is the occurrence of `term`; `sense`
-is its correct sense id. This is what `whichsense evaluate` scores against
-and what `whichsense evidence import` stores.
+is its correct sense id, or null for an occurrence whose sense the inventory
+lacks (read only where the caller allows it: evaluation scores how often such
+occurrences are abstained; they are never evidence). This is what
+`whichsense evaluate` scores against and what `whichsense evidence import` stores.
 """
 
 from __future__ import annotations
@@ -28,17 +30,24 @@ class LabeledOccurrence:
     start: int
     end: int
     term: str
-    sense: str
+    sense: str  # "" when missing_sense
+    missing_sense: bool = False
 
     @property
     def surface(self) -> str:
         return self.text[self.start : self.end]
 
 
-def parse_labeled(obj: Any, where: tuple[str, int]) -> LabeledOccurrence:
-    """One parsed JSON line as a labeled occurrence, checked."""
+def parse_labeled(
+    obj: Any, where: tuple[str, int], *, allow_missing: bool = False
+) -> LabeledOccurrence:
+    """One parsed JSON line as a labeled occurrence, checked; `allow_missing` accepts
+    `"sense": null` (a sense the inventory lacks)."""
     if not isinstance(obj, dict):
         raise LabeledFormatError(*where, "a line must hold a JSON object")
+    missing = allow_missing and obj.get("sense", "") is None
+    if missing:
+        obj = {**obj, "sense": "-"}
     for name, kind in (("text", str), ("term", str), ("sense", str), ("start", int), ("end", int)):
         value = obj.get(name)
         if not isinstance(value, kind) or (kind is int and isinstance(value, bool)):
@@ -54,7 +63,8 @@ def parse_labeled(obj: Any, where: tuple[str, int]) -> LabeledOccurrence:
         start=start,
         end=end,
         term=" ".join(obj["term"].split()),
-        sense=obj["sense"].strip(),
+        sense="" if missing else obj["sense"].strip(),
+        missing_sense=missing,
     )
 
 
@@ -77,7 +87,8 @@ def read_json_lines(path: str | Path) -> Iterator[tuple[int, Any]]:
                 raise LabeledFormatError(str(path), line_number, f"not JSON: {error.msg}") from None
 
 
-def read_labeled(path: str | Path) -> Iterator[LabeledOccurrence]:
+def read_labeled(path: str | Path, *, allow_missing: bool = False) -> Iterator[
+        LabeledOccurrence]:
     """Stream the labeled occurrences of a file."""
     for line_number, obj in read_json_lines(path):
-        yield parse_labeled(obj, (str(path), line_number))
+        yield parse_labeled(obj, (str(path), line_number), allow_missing=allow_missing)

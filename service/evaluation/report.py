@@ -185,6 +185,73 @@ def summarise(
     }
 
 
+# Goals a search team can hold the service to on held-out data (see README,
+# "How far to trust it"): what is assigned is at least this accurate, at most this
+# share of in-inventory occurrences goes to review, at least this share of
+# missing-sense occurrences is abstained, and confidences are this well calibrated.
+GOAL_ASSIGNED_ACCURACY = 0.95
+GOAL_MAX_REVIEW_SHARE = 0.25
+GOAL_MIN_MISSING_ABSTAINED = 0.60
+GOAL_MAX_ECE = 0.03
+
+
+def _share(items: Sequence[Outcome], status: str) -> float | None:
+    return sum(o.status == status for o in items) / len(items) if items else None
+
+
+def _rounded(value: float | None) -> float | None:
+    return None if value is None else round(value, 6)
+
+
+def trust_summary(
+    listed: Sequence[Outcome], missing: Sequence[Outcome], fit: dict[str, Any] | None
+) -> dict[str, Any]:
+    """How far the served statuses can be trusted: in-inventory occurrences (what is
+    assigned, how much goes to review, how many are wrongly abstained) and occurrences
+    whose sense the inventory lacks (how many are abstained), against the goals."""
+    assigned = [o for o in listed if o.status == "assigned"]
+    assigned_accuracy = (
+        sum(o.correct for o in assigned) / len(assigned) if assigned else None
+    )
+    confidences = np.array([o.confidence for o in listed], np.float64)
+    hits = np.array([o.correct for o in listed], bool)
+    ece = expected_calibration_error(confidences, hits) if listed else None
+    review_share = _share(listed, "review")
+    missing_abstained = _share(missing, "abstained")
+    return {
+        "in_inventory": {
+            "n": len(listed),
+            "assigned_share": _rounded(_share(listed, "assigned")),
+            "assigned_accuracy": _rounded(assigned_accuracy),
+            "review_share": _rounded(review_share),
+            "abstained_share": _rounded(_share(listed, "abstained")),
+            "ece": _rounded(ece),
+        },
+        "missing_sense": {
+            "n": len(missing),
+            "abstained_share": _rounded(missing_abstained),
+            "review_share": _rounded(_share(missing, "review")),
+            "assigned_share": _rounded(_share(missing, "assigned")),
+        },
+        "fit": fit,
+        "goals": {
+            "assigned_accuracy_at_least": GOAL_ASSIGNED_ACCURACY,
+            "review_share_at_most": GOAL_MAX_REVIEW_SHARE,
+            "missing_abstained_at_least": GOAL_MIN_MISSING_ABSTAINED,
+            "ece_at_most": GOAL_MAX_ECE,
+            "met": {
+                "assigned_accuracy": assigned_accuracy is not None
+                and assigned_accuracy >= GOAL_ASSIGNED_ACCURACY,
+                "review_share": review_share is not None
+                and review_share <= GOAL_MAX_REVIEW_SHARE,
+                "missing_abstained": None if missing_abstained is None
+                else missing_abstained >= GOAL_MIN_MISSING_ABSTAINED,
+                "ece": ece is not None and ece <= GOAL_MAX_ECE,
+            },
+        },
+    }
+
+
 # -- figures ------------------------------------------------------------------------------
 
 

@@ -128,6 +128,9 @@ def parse_inventory_document(data: Any, *, version: int | None = None) -> Invent
             review_threshold=settings.get("review_threshold", defaults.review_threshold),
             abstain_threshold=settings.get("abstain_threshold", defaults.abstain_threshold),
             temperature=settings.get("temperature"),
+            target_accuracy=settings.get("target_accuracy", defaults.target_accuracy),
+            target_delta=settings.get("target_delta", defaults.target_delta),
+            missing_sense_rate=settings.get("missing_sense_rate", defaults.missing_sense_rate),
         ),
         terms=tuple(
             TermSpec(
@@ -162,6 +165,9 @@ def spec_to_document(spec: InventorySpec) -> dict[str, Any]:
             "review_threshold": spec.settings.review_threshold,
             "abstain_threshold": spec.settings.abstain_threshold,
             "temperature": spec.settings.temperature,
+            "target_accuracy": spec.settings.target_accuracy,
+            "target_delta": spec.settings.target_delta,
+            "missing_sense_rate": spec.settings.missing_sense_rate,
         },
         "terms": [
             {

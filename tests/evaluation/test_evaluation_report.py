@@ -11,7 +11,14 @@ import pytest
 from service.cli.evaluate import threshold_warning
 from service.cli.main import main
 from service.config import Settings
-from service.evaluation.report import Outcome, describe_model, render_html, summarise
+from service.evaluation.labeled import LabeledFormatError, parse_labeled
+from service.evaluation.report import (
+    Outcome,
+    describe_model,
+    render_html,
+    summarise,
+    trust_summary,
+)
 
 HOSTILE_TEXT = 'Play the <script>alert("bass")</script> bass & drums loud.'
 HOSTILE_SENSE = 'bass."><img src=x onerror=alert(1)>'
@@ -121,6 +128,8 @@ def test_evaluate_command_writes_summary_and_report(tmp_path: Path) -> None:
                      "term": "Bass", "sense": sense})
     rows.append({"id": "x", "text": "a mouse", "start": 2, "end": 7, "term": "mouse",
                  "sense": "mouse.animal"})
+    rows.append({"id": "m", "text": "He plays bass in a band.", "start": 9, "end": 13,
+                 "term": "bass", "sense": None})  # a sense the inventory lacks
     labeled.write_text("\n".join(json.dumps(r) for r in rows) + "\n", encoding="utf-8")
     out = tmp_path / "report"
     code = main(["evaluate", str(labeled), "--inventory", str(inventory), "-o", str(out),
@@ -132,7 +141,12 @@ def test_evaluate_command_writes_summary_and_report(tmp_path: Path) -> None:
     assert summary["target_accuracy"] == 0.75
     assert 0.0 <= summary["accuracy"] <= 1.0 and 0.0 <= summary["ece"] <= 1.0
     assert [t["term"] for t in summary["terms"]] == ["bass"]
+    trust = summary["trust"]
+    assert trust["missing_sense"]["n"] == 1 and trust["in_inventory"]["n"] == 4
+    assert trust["fit"]["review"]["guaranteed"] is False  # four labels certify nothing
+    assert trust["fit"]["too_few_labels"]
     html = (out / "report.html").read_text(encoding="utf-8")
+    assert "missing-sense occurrences abstained" in html
     assert "<script>" not in html
     parser = TagCollector()
     parser.feed(html)
@@ -171,3 +185,32 @@ def test_a_threshold_from_too_few_items_comes_with_a_warning() -> None:
     plenty = summarise(many, {"bass": ["bass.fish", "bass.music"]}, target_accuracy=0.85)
     assert plenty["threshold_support"]["enough"] is True
     assert threshold_warning(plenty) is None
+
+
+def test_trust_summary_figures_by_hand() -> None:
+    listed = [
+        _outcome(0, "bass.fish", "bass.fish", 0.97),
+        _outcome(1, "bass.fish", "bass.fish", 0.96),
+        _outcome(2, "bass.fish", "bass.music", 0.91),
+        _outcome(3, "bass.music", "bass.music", 0.5, status="review"),
+    ]
+    missing = [
+        _outcome(4, "(missing sense)", "bass.fish", 0.4, status="abstained"),
+        _outcome(5, "(missing sense)", "bass.fish", 0.9),
+    ]
+    trust = trust_summary(listed, missing, None)
+    assert trust["in_inventory"]["assigned_share"] == 0.75
+    assert trust["in_inventory"]["assigned_accuracy"] == pytest.approx(2 / 3, abs=1e-6)
+    assert trust["in_inventory"]["review_share"] == 0.25
+    assert trust["missing_sense"]["abstained_share"] == 0.5
+    met = trust["goals"]["met"]
+    assert met == {"assigned_accuracy": False, "review_share": True,
+                   "missing_abstained": False, "ece": False}
+
+
+def test_missing_sense_lines_are_read_only_where_allowed() -> None:
+    line = {"text": "a lead pipe", "start": 2, "end": 6, "term": "lead", "sense": None}
+    item = parse_labeled(line, ("f", 1), allow_missing=True)
+    assert item.missing_sense and item.sense == ""
+    with pytest.raises(LabeledFormatError, match="'sense' must be a str"):
+        parse_labeled(line, ("f", 1))
