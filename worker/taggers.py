@@ -12,7 +12,7 @@ from typing import Protocol
 
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.config import Settings, resolve_model_dir
+from service.config import Settings
 from service.engine import Document, DocumentResult
 from service.store.leases import Claim
 from service.tagging.engines import EngineCache, Pin, PinnedEngine, shared_engines, tag_pinned
@@ -39,7 +39,7 @@ class EngineTagger:
 
     def preload(self) -> None:
         """Load the encoder now, so a broken model directory stops the worker at start."""
-        self.engines.encoder(resolve_model_dir(self.settings))
+        self.engines.encoder_for(self.settings)
 
     def tag(
         self, claim: Claim, documents: Sequence[Document], *, rationale: bool

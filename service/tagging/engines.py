@@ -84,21 +84,31 @@ class EngineCache:
         self.max_engines = max_engines
         self.max_finders = max_finders
         self._lock = threading.RLock()
-        self._encoders: dict[Path, ContextEncoder] = {}
+        self._encoders: dict[tuple[Path, bool], ContextEncoder] = {}
         self._finders: OrderedDict[tuple[str, InventorySpec], OccurrenceFinder] = OrderedDict()
         self._specs: OrderedDict[tuple[Any, ...], InventorySpec] = OrderedDict()
         self._engines: OrderedDict[tuple[_Base, int], PinnedEngine] = OrderedDict()
         self.builds = 0
         self.advances = 0
 
-    def encoder(self, model_dir: Path) -> ContextEncoder:
+    def encoder(
+        self, model_dir: Path, *, threads: int | None = None, quantize: bool = False
+    ) -> ContextEncoder:
         with self._lock:
-            encoder = self._encoders.get(model_dir)
+            encoder = self._encoders.get((model_dir, quantize))
             if encoder is None:
                 log.info("loading the encoder from %s", model_dir)
-                encoder = ContextEncoder(model_dir)
-                self._encoders[model_dir] = encoder
+                encoder = ContextEncoder(model_dir, num_threads=threads, quantize=quantize)
+                self._encoders[(model_dir, quantize)] = encoder
             return encoder
+
+    def encoder_for(self, settings: Settings) -> ContextEncoder:
+        """The encoder `settings` ask for (model directory, threads, int8)."""
+        return self.encoder(
+            resolve_model_dir(settings),
+            threads=settings.torch_threads,
+            quantize=settings.quantize_encoder,
+        )
 
     def spec(self, session: Session, database_url: str, name: str, version: int) -> InventorySpec:
         """The inventory at `version`, parsed once: version snapshots never change (the
@@ -138,7 +148,7 @@ class EngineCache:
     def engine(self, session: Session, settings: Settings, pin: Pin) -> PinnedEngine:
         """The engine for `pin`, building or advancing one as needed (reads via `session`)."""
         spec = self.spec(session, settings.database_url, pin.inventory, pin.version)
-        encoder = self.encoder(resolve_model_dir(settings))
+        encoder = self.encoder_for(settings)
         base: _Base = (
             settings.database_url,
             spec,
