@@ -29,6 +29,7 @@ from sqlalchemy import create_engine, text
 from sqlalchemy.engine import make_url
 
 Progress = Callable[[int], None]
+ProgressBar = Callable[[], Any]  # a tqdm-like context manager with update(n)
 TERMINAL = {"done", "failed", "cancelled"}
 START_TIMEOUT_S = 600.0
 BATCH_TIMEOUT_S = 3600.0
@@ -223,7 +224,7 @@ def measure(
     documents: Sequence[dict[str, Any]],
     warmup: Sequence[dict[str, Any]],
     workers: int,
-    progress: Progress | None,
+    progress_bar: ProgressBar,
     *,
     sync_sentences: Sequence[str] = (),
     sync_count: int = 0,
@@ -236,9 +237,10 @@ def measure(
         for _ in range(workers):
             deployment.add_worker()
         deployment.run_batch([dict(d, id=f"warm-{d['id']}") for d in warmup], None)
-        started = time.perf_counter()
-        occurrences = deployment.run_batch(documents, progress)
-        seconds = time.perf_counter() - started
+        with progress_bar() as bar:  # opened now, so start-up does not count in its rate
+            started = time.perf_counter()
+            occurrences = deployment.run_batch(documents, bar.update)
+            seconds = time.perf_counter() - started
         rss = deployment.worker_peak_rss_mb()
         sync = deployment.sync_latencies(sync_sentences, sync_count) if sync_count else []
         return ServiceRun(occurrences, seconds, rss, sync)

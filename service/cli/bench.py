@@ -124,11 +124,12 @@ def run(args: argparse.Namespace) -> int:
         sentences = one_sentence_texts(list(corpus.raw))
         with tempfile.TemporaryDirectory(prefix="whichsense-bench-") as scratch:
             url = f"sqlite:///{Path(scratch) / 'bench.db'}"
-            with bar("service sqlite", occurrences) as progress:
-                run_sqlite = service_runs.measure(
-                    url, corpus.inventory_path, corpus.raw, warmup, 1, progress.update,
-                    sync_sentences=sentences, sync_count=args.sync_requests,
-                )
+            print("starting API and worker on SQLite ...", file=sys.stderr)
+            run_sqlite = service_runs.measure(
+                url, corpus.inventory_path, corpus.raw, warmup, 1,
+                lambda: bar("service sqlite", occurrences),
+                sync_sentences=sentences, sync_count=args.sync_requests,
+            )
         figures["service_sqlite_per_s"] = round(run_sqlite.per_second, 1)
         figures["peak_rss_mb"] = round(run_sqlite.peak_rss_mb, 1)
         if run_sqlite.sync_ms:
@@ -140,10 +141,12 @@ def run(args: argparse.Namespace) -> int:
             notes.append(f"PostgreSQL runs skipped: no server at {args.postgres_url} ({why_not})")
         else:
             for workers, key in ((1, "service_pg_1w_per_s"), (2, "service_pg_2w_per_s")):
-                with service_runs.postgres_database(args.postgres_url) as url, \
-                        bar(f"service pg {workers}w", occurrences) as progress:
+                print(f"starting API and {workers} worker(s) on PostgreSQL ...", file=sys.stderr)
+                name = f"service pg {workers}w"
+                with service_runs.postgres_database(args.postgres_url) as url:
                     result = service_runs.measure(url, corpus.inventory_path, corpus.raw,
-                                                  warmup, workers, progress.update)
+                                                  warmup, workers,
+                                                  lambda name=name: bar(name, occurrences))
                 figures[key] = round(result.per_second, 1)
                 peaks.append(result.peak_rss_mb)
         figures["peak_rss_mb"] = round(max(peaks), 1)
