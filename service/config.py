@@ -31,7 +31,9 @@ class Settings(BaseSettings):
         description="Where encoded training sets and WordNet helper files are cached.",
     )
     torch_threads: int | None = Field(
-        default=None, ge=1, description="Encoder threads; empty means the usable cores less the load, at least one."
+        default=None,
+        ge=1,
+        description="Encoder threads; empty means the usable cores less the load, at least one.",
     )
     quantize_encoder: bool = Field(
         default=False,

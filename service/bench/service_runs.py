@@ -38,14 +38,21 @@ POLL_S = 0.2
 
 @dataclass
 class ServiceRun:
+    """`cpu_seconds`: CPU time the API and worker processes spent on the timed batch."""
+
     occurrences: int
     seconds: float
+    cpu_seconds: float
     peak_rss_mb: float
     sync_ms: list[float] = field(default_factory=list)
 
     @property
     def per_second(self) -> float:
         return self.occurrences / self.seconds if self.seconds > 0 else 0.0
+
+    @property
+    def per_cpu_second(self) -> float:
+        return self.occurrences / self.cpu_seconds if self.cpu_seconds > 0 else 0.0
 
 
 def _free_port() -> int:
@@ -63,6 +70,15 @@ def peak_rss_mb(pid: int) -> float:
     except OSError:
         pass
     return 0.0
+
+
+def cpu_seconds(pid: int) -> float:
+    """User + system CPU time of a process so far (Linux /proc/PID/stat); 0 when unknown."""
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    except OSError:
+        return 0.0
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
 
 
 def postgres_reachable(admin_url: str) -> str | None:
@@ -203,6 +219,10 @@ class Deployment:
                     timings.append(elapsed)
         return timings
 
+    def cpu_seconds(self) -> float:
+        """CPU time of the API and every worker so far."""
+        return sum(cpu_seconds(p.pid) for p in [self.api, *self.workers] if p is not None)
+
     def worker_peak_rss_mb(self) -> float:
         return max((peak_rss_mb(w.pid) for w in self.workers), default=0.0)
 
@@ -238,11 +258,12 @@ def measure(
             deployment.add_worker()
         deployment.run_batch([dict(d, id=f"warm-{d['id']}") for d in warmup], None)
         with progress_bar() as bar:  # opened now, so start-up does not count in its rate
-            started = time.perf_counter()
+            started, cpu = time.perf_counter(), deployment.cpu_seconds()
             occurrences = deployment.run_batch(documents, bar.update)
             seconds = time.perf_counter() - started
+            cpu = deployment.cpu_seconds() - cpu
         rss = deployment.worker_peak_rss_mb()
         sync = deployment.sync_latencies(sync_sentences, sync_count) if sync_count else []
-        return ServiceRun(occurrences, seconds, rss, sync)
+        return ServiceRun(occurrences, seconds, cpu, rss, sync)
     finally:
         deployment.stop()

@@ -23,7 +23,9 @@ JSON_KEYS = (
     "ceiling_per_s", "engine_per_s", "service_sqlite_per_s", "service_pg_1w_per_s",
     "service_pg_2w_per_s", "naive_per_s", "engine_vs_ceiling", "service_sqlite_vs_ceiling",
     "engine_vs_naive", "ceiling_per_cpu_s", "engine_per_cpu_s", "naive_per_cpu_s",
-    "engine_vs_ceiling_cpu", "engine_vs_naive_cpu", "peak_rss_mb", "sync_p50_ms", "sync_p95_ms",
+    "service_sqlite_per_cpu_s", "service_pg_1w_per_cpu_s", "service_pg_2w_per_cpu_s",
+    "engine_vs_ceiling_cpu", "service_sqlite_vs_ceiling_cpu", "engine_vs_naive_cpu",
+    "peak_rss_mb", "sync_p50_ms", "sync_p95_ms",
 )  # fmt: skip
 
 
@@ -131,6 +133,7 @@ def run(args: argparse.Namespace) -> int:
                 sync_sentences=sentences, sync_count=args.sync_requests,
             )
         figures["service_sqlite_per_s"] = round(run_sqlite.per_second, 1)
+        figures["service_sqlite_per_cpu_s"] = round(run_sqlite.per_cpu_second, 1)
         figures["peak_rss_mb"] = round(run_sqlite.peak_rss_mb, 1)
         if run_sqlite.sync_ms:
             figures["sync_p50_ms"] = round(percentile(run_sqlite.sync_ms, 0.50), 1)
@@ -148,6 +151,7 @@ def run(args: argparse.Namespace) -> int:
                                                   warmup, workers,
                                                   lambda name=name: bar(name, occurrences))
                 figures[key] = round(result.per_second, 1)
+                figures[key.replace("_per_s", "_per_cpu_s")] = round(result.per_cpu_second, 1)
                 peaks.append(result.peak_rss_mb)
         figures["peak_rss_mb"] = round(max(peaks), 1)
     else:
@@ -159,6 +163,8 @@ def run(args: argparse.Namespace) -> int:
     figures["engine_vs_naive"] = _ratio(figures["engine_per_s"], figures["naive_per_s"])
     figures["engine_vs_ceiling_cpu"] = _ratio(
         figures["engine_per_cpu_s"], figures["ceiling_per_cpu_s"])
+    figures["service_sqlite_vs_ceiling_cpu"] = _ratio(
+        figures["service_sqlite_per_cpu_s"], figures["ceiling_per_cpu_s"])
     figures["engine_vs_naive_cpu"] = _ratio(figures["engine_per_cpu_s"], figures["naive_per_cpu_s"])
     print_table(figures, notes)
     if args.json:
@@ -185,8 +191,12 @@ def print_table(figures: dict[str, Any], notes: list[str]) -> None:
         share = f"{value / ceiling:10.2f}" if value and ceiling else f"{'':10}"
         print(f"{name:16} {shown} {share}  {what}")
     print(f"per CPU-second (steadier on a shared host): ceiling {figures['ceiling_per_cpu_s']}, "
-          f"engine {figures['engine_per_cpu_s']}, naive {figures['naive_per_cpu_s']}; "
+          f"engine {figures['engine_per_cpu_s']}, naive {figures['naive_per_cpu_s']}, "
+          f"service sqlite {figures['service_sqlite_per_cpu_s']} (API + worker), "
+          f"pg 1w {figures['service_pg_1w_per_cpu_s']}, "
+          f"pg 2w {figures['service_pg_2w_per_cpu_s']}; "
           f"engine vs ceiling {figures['engine_vs_ceiling_cpu']}, "
+          f"service sqlite vs ceiling {figures['service_sqlite_vs_ceiling_cpu']}, "
           f"vs naive {figures['engine_vs_naive_cpu']}")
     print(f"engine vs naive: {figures['engine_vs_naive']} x; "
           f"worker peak RSS: {figures['peak_rss_mb']} MB; "

@@ -25,7 +25,9 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for module in (database, keys, inventory, serve):
         module.add_parser(commands)
-    for name in ("tag", "evidence", "calibrate", "benchmark", "evaluate", "worker", "demo", "bench"):
+    for name in (
+        "tag", "evidence", "calibrate", "benchmark", "evaluate", "worker", "demo", "bench"
+    ):
         _add_optional(commands, name)
     return parser
 
