@@ -18,7 +18,6 @@ import argparse
 import json
 import sys
 import time
-from collections import Counter
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -29,51 +28,8 @@ from service.bench.corpus import load_corpus  # noqa: E402
 from service.engine import open_wordnet  # noqa: E402
 from service.engine.disambiguator import Disambiguator, SpanQuery  # noqa: E402
 from service.engine.encoder import ContextEncoder  # noqa: E402
-from service.engine.types import Evidence, InventorySpec  # noqa: E402
 from service.inventory.document import parse_inventory_document  # noqa: E402
-from tests.engine.test_semeval_slice import (  # noqa: E402
-    SENTENCES_PER_LEMMA,
-    TEST_DOCUMENTS,
-    sentences,
-    wordnet_term,
-)
-
-
-def semeval_slice(data: Path, wordnet):  # type: ignore[no-untyped-def]
-    items, documents = [], []
-    for doc, text, instances in sentences(data / "semeval2013-en.jsonl.gz"):
-        if doc not in documents:
-            documents.append(doc)
-        if len(documents) > TEST_DOCUMENTS:
-            break
-        items.extend((doc, text, item) for item in instances)
-    terms = {}
-    for _, _, item in items:
-        key = (item["lemma"], item["pos"])
-        if key not in terms:
-            terms[key] = wordnet_term(wordnet, *key)
-    terms = {k: v for k, v in terms.items() if v is not None}
-    scored = [(d, t, i) for d, t, i in items if (i["lemma"], i["pos"]) in terms
-              and any(k in {s.sense_id for s in terms[(i["lemma"], i["pos"])].senses}
-                      for k in i["keys"])]
-    evidence, taken = [], Counter()
-    for _, text, instances in sentences(data / "semcor30.jsonl.gz"):
-        for item in instances:
-            key = (item["lemma"], item["pos"])
-            if key not in terms or taken[key] >= SENTENCES_PER_LEMMA:
-                continue
-            ids = {s.sense_id for s in terms[key].senses}
-            label = next((k for k in item["keys"] if k in ids), None)
-            if label is None:
-                continue
-            taken[key] += 1
-            evidence.append(Evidence(len(evidence) + 1, terms[key].term, label, text,
-                                     item["start"], item["end"]))
-    inventory = InventorySpec("semeval-slice", 1, tuple(terms.values()))
-    queries = [SpanQuery(t, i["start"], i["end"], terms[(i["lemma"], i["pos"])].term,
-                         document_id=d) for d, t, i in scored]
-    gold = [set(i["keys"]) for _, _, i in scored]
-    return inventory, evidence, queries, gold
+from tests.engine.test_semeval_slice import semeval_slice  # noqa: E402
 
 
 def main() -> int:
@@ -81,7 +37,10 @@ def main() -> int:
     parser.add_argument("--data", type=Path, default=ROOT.parent / "shared" / "data")
     args = parser.parse_args()
     wordnet = open_wordnet()
-    inventory, evidence, queries, gold = semeval_slice(args.data, wordnet)
+    sliced = semeval_slice(args.data / "semeval2013-en.jsonl.gz",
+                           args.data / "semcor30.jsonl.gz", wordnet)
+    inventory, evidence, queries, gold = (sliced.inventory, sliced.evidence, sliced.queries,
+                                          sliced.gold)
     demo = parse_inventory_document(
         json.loads((ROOT / "demo_corpus" / "inventory.json").read_text()), version=1)
     labeled = [json.loads(line) for line in

@@ -8,11 +8,11 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 
 import numpy as np
 import torch
 
+from service.bench.figures import Measured
 from service.engine.disambiguator import Disambiguator
 from service.engine.encoder import MODEL_MAX_TOKENS, ContextEncoder
 from service.engine.types import Document
@@ -21,21 +21,7 @@ Progress = Callable[[int], None]
 SLICES = 4
 
 
-@dataclass(frozen=True)
-class Timed:
-    """Occurrences with the wall-clock and CPU seconds (this process, all threads) spent."""
-
-    occurrences: int
-    seconds: float
-    cpu_seconds: float
-
-    @property
-    def per_second(self) -> float:
-        return self.occurrences / self.seconds if self.seconds > 0 else 0.0
-
-    @property
-    def per_cpu_second(self) -> float:
-        return self.occurrences / self.cpu_seconds if self.cpu_seconds > 0 else 0.0
+Timed = Measured
 
 
 class Clock:

@@ -20,13 +20,15 @@ import time
 import uuid
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import httpx
 from sqlalchemy import create_engine, text
 from sqlalchemy.engine import make_url
+
+from service.bench.figures import Measured
 
 Progress = Callable[[int], None]
 ProgressBar = Callable[[], Any]  # a tqdm-like context manager with update(n)
@@ -36,23 +38,12 @@ BATCH_TIMEOUT_S = 3600.0
 POLL_S = 0.2
 
 
-@dataclass
-class ServiceRun:
+@dataclass(frozen=True)
+class ServiceRun(Measured):
     """`cpu_seconds`: CPU time the API and worker processes spent on the timed batch."""
 
-    occurrences: int
-    seconds: float
-    cpu_seconds: float
-    peak_rss_mb: float
-    sync_ms: list[float] = field(default_factory=list)
-
-    @property
-    def per_second(self) -> float:
-        return self.occurrences / self.seconds if self.seconds > 0 else 0.0
-
-    @property
-    def per_cpu_second(self) -> float:
-        return self.occurrences / self.cpu_seconds if self.cpu_seconds > 0 else 0.0
+    peak_rss_mb: float = 0.0
+    sync_ms: tuple[float, ...] = ()
 
 
 def _free_port() -> int:
@@ -264,6 +255,6 @@ def measure(
             cpu = deployment.cpu_seconds() - cpu
         rss = deployment.worker_peak_rss_mb()
         sync = deployment.sync_latencies(sync_sentences, sync_count) if sync_count else []
-        return ServiceRun(occurrences, seconds, cpu, rss, sync)
+        return ServiceRun(occurrences, seconds, cpu, rss, tuple(sync))
     finally:
         deployment.stop()

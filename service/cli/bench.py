@@ -12,6 +12,7 @@ import json
 import math
 import sys
 import tempfile
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -49,7 +50,7 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=run)
 
 
-def percentile(values: list[float], share: float) -> float:
+def percentile(values: Sequence[float], share: float) -> float:
     """Nearest-rank percentile (NIST/Excel 'inclusive' rank rounding); NaN when empty."""
     if not values:
         return math.nan
