@@ -28,14 +28,13 @@ def encode_spans_by_layer(
     spans_of: dict[int, list[int]] = {}
     for span_id, (window, _start, _end) in enumerate(placed):
         spans_of.setdefault(window, []).append(span_id)
-    texts = [text for text, _ in windows]
-    for batch in encoder._batches(texts):
-        encoding, output = encoder._forward([texts[i] for i in batch], attentions=False)
-        mask = encoding["attention_mask"].numpy().astype(bool)
+    tokenized = encoder._tokenize([text for text, _ in windows])
+    all_ids = tokenized["input_ids"]
+    for batch in encoder._batches([len(row) for row in all_ids]):
+        output = encoder._forward([all_ids[i] for i in batch], attentions=False)
         for row, window_id in enumerate(batch):
-            length = int(mask[row].sum())
-            offsets = encoding["offset_mapping"][row, :length].numpy()
-            special = encoding["special_tokens_mask"][row, :length].numpy().astype(bool)
+            offsets = np.asarray(tokenized["offset_mapping"][window_id], np.int64)
+            special = np.asarray(tokenized["special_tokens_mask"][window_id], bool)
             for span_id in spans_of.get(window_id, ()):
                 _, start, end = placed[span_id]
                 tokens = encoder._term_tokens(offsets, special, start, end)
@@ -51,10 +50,16 @@ def encode_spans_by_layer(
 def encode_texts_by_layer(encoder: ContextEncoder, texts: Sequence[str]) -> np.ndarray:
     """(texts, layers + 1, dim) unnormalised mean of each text's non-special tokens."""
     vectors = np.zeros((len(texts), encoder.num_layers + 1, encoder.dimension), np.float32)
-    for batch in encoder._batches(texts):
-        encoding, output = encoder._forward([texts[i] for i in batch], attentions=False)
-        keep = encoding["attention_mask"].bool() & ~encoding["special_tokens_mask"].bool()
-        weights = keep.unsqueeze(-1).float()
+    tokenized = encoder._tokenize(texts)
+    all_ids = tokenized["input_ids"]
+    for batch in encoder._batches([len(row) for row in all_ids]):
+        output = encoder._forward([all_ids[i] for i in batch], attentions=False)
+        width = max(len(all_ids[i]) for i in batch)
+        keep = np.zeros((len(batch), width), np.float32)
+        for number, i in enumerate(batch):
+            special = tokenized["special_tokens_mask"][i]
+            keep[number, : len(special)] = 1 - np.asarray(special, np.float32)
+        weights = torch.from_numpy(keep).unsqueeze(-1)
         counts = weights.sum(dim=1).clamp(min=1.0)
         for layer, states in enumerate(output.hidden_states):
             vectors[batch, layer] = ((states * weights).sum(dim=1) / counts).numpy()

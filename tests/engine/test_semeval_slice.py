@@ -14,6 +14,7 @@ import gzip
 import json
 from collections import Counter
 from collections.abc import Iterator
+from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
@@ -68,8 +69,18 @@ def wordnet_term(wordnet, lemma: str, pos: str) -> TermSpec | None:
     return TermSpec(f"{lemma}/{pos}", tuple(unique.values()), aliases=(lemma,), pos=pos)
 
 
-def test_engine_beats_most_frequent_sense_on_a_semeval_2013_slice(encoder, wordnet):
-    semeval, semcor = shared_data("semeval2013-en.jsonl.gz", "semcor30.jsonl.gz")
+@dataclass(frozen=True)
+class SemEvalSlice:
+    """The test slice: WordNet inventory, SemCor evidence, queries, gold keys, SemCor counts."""
+
+    inventory: InventorySpec
+    evidence: list[Evidence]
+    queries: list[SpanQuery]
+    gold: list[set[str]]
+    baseline: list[str]  # the most frequent sense in the SemCor slice, per query
+
+
+def semeval_slice(semeval: Path, semcor: Path, wordnet) -> SemEvalSlice:
     documents = []
     test_items: list[tuple[str, str, dict]] = []
     for doc, text, instances in sentences(semeval):
@@ -92,7 +103,6 @@ def test_engine_beats_most_frequent_sense_on_a_semeval_2013_slice(encoder, wordn
         and any(k in {s.sense_id for s in terms[(item["lemma"], item["pos"])].senses}
                 for k in item["keys"])
     ]
-    assert len(scored) > 400
 
     evidence: list[Evidence] = []
     counts: dict[tuple[str, str], Counter[str]] = {key: Counter() for key in terms}
@@ -112,27 +122,37 @@ def test_engine_beats_most_frequent_sense_on_a_semeval_2013_slice(encoder, wordn
                 Evidence(len(evidence) + 1, terms[key].term, label, text, item["start"],
                          item["end"])
             )
-    assert len(evidence) > 500
-
-    inventory = InventorySpec("wordnet-semeval-slice", 1, tuple(terms.values()))
-    disambiguator = Disambiguator(encoder, inventory, evidence)
-    queries = [
-        SpanQuery(text, item["start"], item["end"], terms[(item["lemma"], item["pos"])].term,
-                  document_id=doc)
-        for doc, text, item in scored
-    ]
-    results = disambiguator.classify_spans(queries)
-
-    engine_hits = sum(
-        r.candidates[0].sense_id in item["keys"]
-        for r, (_, _, item) in zip(results, scored, strict=True)
-    )
-    baseline_hits = 0
+    baseline = []
     for _, _, item in scored:
         key = (item["lemma"], item["pos"])
-        guess = (counts[key].most_common(1)[0][0] if counts[key]
-                 else terms[key].senses[0].sense_id)
-        baseline_hits += guess in item["keys"]
+        baseline.append(counts[key].most_common(1)[0][0] if counts[key]
+                        else terms[key].senses[0].sense_id)
+    return SemEvalSlice(
+        inventory=InventorySpec("wordnet-semeval-slice", 1, tuple(terms.values())),
+        evidence=evidence,
+        queries=[
+            SpanQuery(text, item["start"], item["end"], terms[(item["lemma"], item["pos"])].term,
+                      document_id=doc)
+            for doc, text, item in scored
+        ],
+        gold=[set(item["keys"]) for _, _, item in scored],
+        baseline=baseline,
+    )
+
+
+def test_engine_beats_most_frequent_sense_on_a_semeval_2013_slice(encoder, wordnet):
+    semeval, semcor = shared_data("semeval2013-en.jsonl.gz", "semcor30.jsonl.gz")
+    data = semeval_slice(semeval, semcor, wordnet)
+    assert len(data.queries) > 400
+    assert len(data.evidence) > 500
+    disambiguator = Disambiguator(encoder, data.inventory, data.evidence)
+    results = disambiguator.classify_spans(data.queries)
+    engine_hits = sum(
+        r.candidates[0].sense_id in gold for r, gold in zip(results, data.gold, strict=True)
+    )
+    baseline_hits = sum(guess in gold for guess, gold in zip(data.baseline, data.gold,
+                                                              strict=True))
+    scored = data.queries
     engine, baseline = engine_hits / len(scored), baseline_hits / len(scored)
     print(f"SemEval-2013 slice: {len(scored)} instances, engine {engine:.3f}, MFS {baseline:.3f}")
     assert engine > baseline
