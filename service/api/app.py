@@ -22,7 +22,8 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service import __version__
 from service.api import metrics
-from service.api.problems import install_problem_handlers, problem_response
+from service.api.bodies import BodyGuard
+from service.api.problems import declare_responses, install_problem_handlers, problem_response
 from service.api.routes import batches, disambiguate, evidence, health, inventories
 from service.config import Settings, get_settings
 from service.inventory.document import inventory_schema
@@ -125,6 +126,7 @@ def create_app(settings: Settings | None = None, *, check_migrated: bool = True)
     app.state.settings = settings
     app.state.sessions = session_factory(settings.database_url)
     install_problem_handlers(app)
+    app.add_middleware(BodyGuard, max_json_depth=settings.max_json_depth)
     app.add_middleware(BodyLimit, limit=settings.max_request_bytes)
     app.add_middleware(metrics.RequestMetrics)
     app.include_router(health.router)
@@ -166,6 +168,7 @@ def _mount_docs(app: FastAPI) -> None:
             schema.setdefault("components", {}).setdefault("schemas", {}).update(
                 _openapi_components(inventory_schema())
             )
+            declare_responses(schema)
             app.openapi_schema = schema
         return app.openapi_schema
 

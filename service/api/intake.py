@@ -26,7 +26,7 @@ from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 from starlette.requests import Request
 
-from service.api.bodies import decode_json_object
+from service.api.bodies import decode_json_object, loads
 from service.api.problems import ProblemError
 from service.batches.documents import DocumentInvalid, InputDocument, parse_document
 from service.batches.lines import LineTooLong, numbered_lines
@@ -207,7 +207,11 @@ class Intake:
                 if not line.strip():
                     continue
                 try:
-                    item = json.loads(line.decode("utf-8"))
+                    item = loads(
+                        line.decode("utf-8"),
+                        max_depth=self.settings.max_json_depth,
+                        where=f"line {number}",
+                    )
                 except UnicodeDecodeError as exc:
                     raise ProblemError(
                         400,

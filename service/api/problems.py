@@ -16,6 +16,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from service.api.contract import allowed_methods
 from service.inventory.document import InventoryInvalid
 from service.store.errors import Conflict, NotFound
 
@@ -38,6 +39,57 @@ _TITLES = {
     500: ("internal", "Internal server error"),
     503: ("unavailable", "The service is not ready"),
 }
+
+PROBLEM_SCHEMA: dict[str, Any] = {
+    "type": "object",
+    "description": "RFC 9457 problem details; extension members carry specifics.",
+    "required": ["type", "title", "status", "detail"],
+    "properties": {
+        "type": {"type": "string", "format": "uri-reference"},
+        "title": {"type": "string"},
+        "status": {"type": "integer", "minimum": 400, "maximum": 599},
+        "detail": {"type": "string"},
+        "instance": {"type": "string"},
+        "limit": {"type": "string", "description": "the setting whose bound was passed"},
+        "errors": {"type": "array", "items": {"type": "object"}},
+    },
+    "additionalProperties": True,
+}
+
+# Which problems an operation can answer with, by what it takes; one table for every route.
+_EVERY_ROUTE = (404, 422)
+_AUTHENTICATED = (401, 403, 503)
+_WITH_BODY = (400, 413, 415)
+
+
+def problem_statuses(path: str, method: str, has_body: bool) -> tuple[int, ...]:
+    """The problem statuses an operation on `path` declares in OpenAPI."""
+    statuses = list(_EVERY_ROUTE)
+    if path.startswith("/v1/"):
+        statuses += _AUTHENTICATED
+    if has_body or method.upper() in ("POST", "PUT", "PATCH"):
+        statuses += _WITH_BODY
+    return tuple(sorted(set(statuses)))
+
+
+def declare_responses(schema: dict[str, Any]) -> None:
+    """Declare on every operation of an OpenAPI `schema` the problem documents it can return.
+
+    Replaces FastAPI's default 422 (a JSON body of its own shape) with the problem
+    document this API actually sends.
+    """
+    components = schema.setdefault("components", {}).setdefault("schemas", {})
+    components["Problem"] = PROBLEM_SCHEMA
+    for name in ("HTTPValidationError", "ValidationError"):
+        components.pop(name, None)
+    content = {MEDIA_TYPE: {"schema": {"$ref": "#/components/schemas/Problem"}}}
+    for path, operations in schema.get("paths", {}).items():
+        for method, operation in operations.items():
+            if not isinstance(operation, dict) or "responses" not in operation:
+                continue
+            responses = operation["responses"]
+            for status in problem_statuses(path, method, "requestBody" in operation):
+                responses[str(status)] = {"description": _TITLES[status][1], "content": content}
 
 
 class ProblemError(Exception):
@@ -96,6 +148,11 @@ def _validation_errors(exc: RequestValidationError) -> list[dict[str, Any]]:
     return errors
 
 
+def _allowed_methods(request: Request) -> str:
+    """Every documented method at this path (Starlette names only the first route's)."""
+    return ", ".join(allowed_methods(request.app, request.url.path))
+
+
 def install_problem_handlers(app: FastAPI) -> None:
     """Route every error (ours, FastAPI's, Starlette's, unexpected) to a problem document."""
 
@@ -110,12 +167,12 @@ def install_problem_handlers(app: FastAPI) -> None:
         detail = exc.detail if isinstance(exc.detail, str) else str(exc.detail)
         if exc.status_code == 404 and detail == "Not Found":
             detail = f"no resource at {request.url.path}"
+        headers = getattr(exc, "headers", None)
         if exc.status_code == 405:
             detail = f"{request.method} is not allowed on {request.url.path}"
+            headers = {**(headers or {}), "Allow": _allowed_methods(request)}
         extra = {"limit": exc.limit_name} if hasattr(exc, "limit_name") else {}
-        return problem_response(
-            request, exc.status_code, detail, headers=getattr(exc, "headers", None), **extra
-        )
+        return problem_response(request, exc.status_code, detail, headers=headers, **extra)
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:

@@ -32,7 +32,14 @@ def run(args: argparse.Namespace) -> int:
         attach = _in_process_worker()
         if attach is not None:
             attach(app, settings)
-    uvicorn.run(app, host=args.host, port=args.port, log_level="info")
+    uvicorn.run(
+        app,
+        host=args.host,
+        port=args.port,
+        log_level="info",
+        # SIGTERM: stop accepting, let requests in flight finish this long, then cut them off.
+        timeout_graceful_shutdown=max(1, round(settings.shutdown_grace_seconds)),
+    )
     return 0
 
 

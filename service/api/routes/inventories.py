@@ -13,7 +13,7 @@ from fastapi.responses import JSONResponse
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.api.bodies import decode_json_object, decode_utf8
+from service.api.bodies import decode_json_object, decode_utf8, media_type, refuse_nul
 from service.api.deps import admin_key, any_key, get_session
 from service.api.problems import ProblemError
 from service.api.schemas import (
@@ -27,6 +27,7 @@ from service.api.schemas import (
     TermPatch,
     VersionInfo,
 )
+from service.api.validators import ExampleIndex, OptionalVersion, VersionNumber
 from service.inventory.csv_format import read_inventory_csv, write_inventory_csv
 from service.inventory.document import inventory_schema
 from service.store import inventories as repo
@@ -60,12 +61,14 @@ def _summary(session: Session, inventory: Inventory) -> InventorySummary:
 
 async def _read_document(request: Request, name: str | None) -> dict[str, Any]:
     """The inventory document in the body: JSON, or CSV (then `name` comes from the URL)."""
-    media = request.headers.get("content-type", "application/json").split(";")[0].strip().lower()
+    media = media_type(request.headers.get("content-type"))
     raw = await request.body()
     if media == "text/csv":
         if not name:
             raise ProblemError(422, "a CSV inventory needs ?name=<inventory name>")
-        return read_inventory_csv(decode_utf8(raw), name)
+        text = decode_utf8(raw)
+        refuse_nul(text, "the CSV body")
+        return read_inventory_csv(text, name)
     if media != "application/json" and not media.endswith("+json"):
         raise ProblemError(415, f"send application/json or text/csv, not {media}")
     return decode_json_object(raw, "an inventory document (a JSON object)")
@@ -153,7 +156,7 @@ def delete_inventory(
 def export_inventory(
     name: str,
     request: Request,
-    version: int | None = None,
+    version: OptionalVersion = None,
     session: Session = Depends(get_session),
     _caller: Any = Depends(any_key),
 ) -> Response:
@@ -200,7 +203,7 @@ def list_versions(
 @router.get("/inventories/{name}/versions/{version}", summary="The document at one version")
 def get_version(
     name: str,
-    version: int,
+    version: VersionNumber,
     request: Request,
     session: Session = Depends(get_session),
     _caller: Any = Depends(any_key),
@@ -383,7 +386,7 @@ def _example_at(sense: dict[str, Any], index: int) -> None:
 def replace_example(
     name: str,
     sense_id: str,
-    index: int,
+    index: ExampleIndex,
     example: ExampleIn,
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
@@ -402,7 +405,7 @@ def replace_example(
 def delete_example(
     name: str,
     sense_id: str,
-    index: int,
+    index: ExampleIndex,
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> Response:
