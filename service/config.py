@@ -65,7 +65,8 @@ class Settings(BaseSettings):
         default=64,
         gt=0,
         le=500,
-        description="Deepest nesting of arrays/objects in a JSON body or NDJSON line. Over it: 413.",
+        description="Deepest nesting of arrays/objects in a JSON body or NDJSON line. "
+        "Over it: 413.",
     )
     max_terms_per_inventory: int = Field(
         default=20_000, gt=0, description="Terms in one inventory. Over it: 413."
@@ -76,7 +77,7 @@ class Settings(BaseSettings):
     statement_timeout_seconds: float = Field(
         default=30.0,
         gt=0,
-        description="Longest one SQL statement of an API request may run (PostgreSQL). Over it: 503.",
+        description="Longest one SQL statement of an inventory edit may run. Over it: 503.",
     )
     lock_timeout_seconds: float = Field(
         default=5.0,

@@ -159,7 +159,7 @@ def test_bad_ndjson_names_its_line_and_stores_nothing(pipeline, body, status, li
 
 def test_bad_json_bodies(pipeline):
     post = pipeline.client.post
-    headers = pipeline.ingest
+    headers = {**pipeline.ingest, "Content-Type": "application/json"}
     assert_problem(
         post("/v1/batches", content=b'{"inventory": "tiny-shop", "documents": [', headers=headers),
         400,
