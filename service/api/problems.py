@@ -14,10 +14,11 @@ from typing import Any
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
+from sqlalchemy.exc import OperationalError
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from service.api.contract import allowed_methods
-from service.inventory.document import InventoryInvalid
+from service.inventory.document import InventoryInvalid, InventoryTooLarge
 from service.store.errors import Conflict, NotFound
 
 MEDIA_TYPE = "application/problem+json"
@@ -192,6 +193,24 @@ def install_problem_handlers(app: FastAPI) -> None:
             str(exc),
             kind="invalid-inventory",
             errors=[p.to_json() for p in exc.problems],
+        )
+
+    @app.exception_handler(InventoryTooLarge)
+    async def _too_large(request: Request, exc: InventoryTooLarge) -> JSONResponse:
+        return problem_response(request, 413, str(exc), limit=exc.limit)
+
+    @app.exception_handler(OperationalError)
+    async def _busy(request: Request, exc: OperationalError) -> JSONResponse:
+        # A lock or statement timeout, or SQLite still locked after busy_timeout: the
+        # request was rolled back whole and may be retried.
+        log.warning("database busy on %s %s: %s", request.method, request.url.path, exc.orig)
+        return problem_response(
+            request,
+            503,
+            "the database is busy (a lock or time limit was reached); nothing was stored, "
+            "retry shortly",
+            kind="busy",
+            headers={"Retry-After": "1"},
         )
 
     @app.exception_handler(NotFound)

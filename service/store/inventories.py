@@ -1,26 +1,38 @@
-"""Inventory repository: every edit is a whole-document change with a new version.
+"""Inventory repository: every edit yields a new version with an immutable snapshot.
 
-An edit is applied to the current document, the result is validated as a
-whole (so no edit can leave an inventory the engine would reject), the rows are
-rewritten and an immutable snapshot of the new version is stored. Old versions
-stay readable for the batches pinned to them.
+An edit is applied to the current document. An edit that says which terms it
+touched is checked incrementally: the schema for those term entries and the top
+level, the cross-row rules (unique surfaces and sense ids) for the whole
+document, and only the touched terms' rows are rewritten. Anything else (a
+whole-document replacement) is validated and written as a whole. Either way no
+edit can leave an inventory the engine would reject, and old versions stay
+readable for the batches pinned to them.
+
+Edits take the inventory's row lock; on PostgreSQL they run under
+`lock_timeout` and `statement_timeout` so a stuck edit cannot hold the lock and
+queue every other request behind it.
 """
 
 from __future__ import annotations
 
 import copy
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from typing import Any
 
-from sqlalchemy import delete, select
+from sqlalchemy import delete, func, select, text
 from sqlalchemy.orm import Session
 
-from service.config import get_settings
-from service.engine.types import InventorySpec
+from service.config import Settings, get_settings
+from service.engine.types import InventorySpec, TermSpec
 from service.inventory.document import (
+    InventoryInvalid,
+    check_inventory_size,
     fold,
     parse_inventory_document,
+    parse_term,
     spec_to_document,
+    term_to_document,
+    validate_inventory_document,
 )
 from service.store.errors import Conflict, NotFound
 from service.store.models import (
@@ -33,6 +45,9 @@ from service.store.models import (
 )
 
 Document = dict[str, Any]
+# What an edit returns: the folded surfaces of the terms it touched (added, changed or
+# removed), or None when it may have changed anything (then the whole document is redone).
+Change = Callable[[Document], Iterable[str] | None]
 
 
 def list_inventories(session: Session) -> list[Inventory]:
@@ -59,51 +74,113 @@ def _with_default_settings(document: Document) -> Document:
     return document
 
 
-def _write_rows(session: Session, inventory: Inventory, spec: InventorySpec) -> None:
-    """Replace the inventory's rows with those of `spec` and store its snapshot."""
-    session.execute(delete(Term).where(Term.inventory_id == inventory.id))
+def _add_term_rows(session: Session, inventory: Inventory, term: TermSpec, position: int) -> None:
+    term_row = Term(
+        inventory_id=inventory.id,
+        term=term.term,
+        folded=fold(term.term),
+        aliases=list(term.aliases),
+        case_rule=term.case,
+        pos=term.pos,
+        inflect=term.inflect,
+        position=position,
+    )
+    session.add(term_row)
     session.flush()
+    for s, sense in enumerate(term.senses):
+        sense_row = Sense(
+            inventory_id=inventory.id,
+            term_id=term_row.id,
+            sense_key=sense.sense_id,
+            gloss=sense.gloss,
+            tags=list(sense.tags),
+            position=s,
+        )
+        sense_row.examples = [
+            SenseExample(text=example, position=e) for e, example in enumerate(sense.examples)
+        ]
+        session.add(sense_row)
+
+
+def _store_version(
+    session: Session, inventory: Inventory, spec: InventorySpec, document: Document | None = None
+) -> None:
+    """Copy the top-level settings to the inventory row and store the new snapshot.
+
+    `document`: the canonical document when the caller has it (an incremental
+    edit), else it is written from `spec`.
+    """
     inventory.description = spec.description
     inventory.review_threshold = spec.settings.review_threshold
     inventory.abstain_threshold = spec.settings.abstain_threshold
     inventory.temperature = spec.settings.temperature
     inventory.updated_at = utcnow()
-    for t, term in enumerate(spec.terms):
-        term_row = Term(
-            inventory_id=inventory.id,
-            term=term.term,
-            folded=fold(term.term),
-            aliases=list(term.aliases),
-            case_rule=term.case,
-            pos=term.pos,
-            inflect=term.inflect,
-            position=t,
-        )
-        session.add(term_row)
-        session.flush()
-        for s, sense in enumerate(term.senses):
-            sense_row = Sense(
-                inventory_id=inventory.id,
-                term_id=term_row.id,
-                sense_key=sense.sense_id,
-                gloss=sense.gloss,
-                tags=list(sense.tags),
-                position=s,
-            )
-            sense_row.examples = [
-                SenseExample(text=text, position=e) for e, text in enumerate(sense.examples)
-            ]
-            session.add(sense_row)
     session.add(
         InventoryVersion(
-            inventory_id=inventory.id, version=spec.version, document=spec_to_document(spec)
+            inventory_id=inventory.id,
+            version=spec.version,
+            document=document if document is not None else spec_to_document(spec),
         )
     )
     session.flush()
 
 
-def create_inventory(session: Session, document: Document) -> Inventory:
+def _write_rows(session: Session, inventory: Inventory, spec: InventorySpec) -> None:
+    """Replace the inventory's rows with those of `spec` and store its snapshot."""
+    session.execute(delete(Term).where(Term.inventory_id == inventory.id))
+    session.flush()
+    for t, term in enumerate(spec.terms):
+        _add_term_rows(session, inventory, term, t)
+    _store_version(session, inventory, spec)
+
+
+def _rewrite_terms(
+    session: Session, inventory: Inventory, terms: list[TermSpec], keys: set[str]
+) -> None:
+    """Rewrite only the rows of the terms folded to `keys` (gone ones are deleted)."""
+    old = {
+        folded: position
+        for folded, position in session.execute(
+            select(Term.folded, Term.position).where(
+                Term.inventory_id == inventory.id, Term.folded.in_(keys)
+            )
+        )
+    }
+    session.execute(delete(Term).where(Term.inventory_id == inventory.id, Term.folded.in_(keys)))
+    session.flush()
+    following = session.scalar(
+        select(func.coalesce(func.max(Term.position), -1)).where(Term.inventory_id == inventory.id)
+    )
+    for term in terms:
+        key = fold(term.term)
+        if key not in old:
+            following += 1
+        _add_term_rows(session, inventory, term, old.get(key, following))
+
+
+def _bound_waits(session: Session, settings: Settings) -> None:
+    """On PostgreSQL, cap this transaction's lock wait and statement time."""
+    if session.get_bind().dialect.name != "postgresql":
+        return  # SQLite: one writer, edits are short; busy_timeout bounds the wait
+    lock_ms = max(1, int(settings.lock_timeout_seconds * 1000))
+    statement_ms = max(1, int(settings.statement_timeout_seconds * 1000))
+    session.execute(text(f"SET LOCAL lock_timeout = {lock_ms}"))
+    session.execute(text(f"SET LOCAL statement_timeout = {statement_ms}"))
+
+
+def _check_size(document: Document, settings: Settings) -> None:
+    check_inventory_size(
+        document,
+        max_terms=settings.max_terms_per_inventory,
+        max_senses=settings.max_senses_per_inventory,
+    )
+
+
+def create_inventory(
+    session: Session, document: Document, *, settings: Settings | None = None
+) -> Inventory:
     """Store a new inventory at version 1; Conflict if the name is taken."""
+    _check_size(document, settings or get_settings())
     spec = parse_inventory_document(_with_default_settings(document), version=1)
     if session.scalars(select(Inventory.id).where(Inventory.name == spec.name)).first():
         raise Conflict(f"inventory '{spec.name}' already exists")
@@ -132,25 +209,52 @@ def version_document(session: Session, inventory: Inventory, version: int) -> Do
     ).one_or_none()
     if document is None:
         raise NotFound(f"inventory '{inventory.name}' has no version {version}")
-    return copy.deepcopy(document)
+    return document  # a column read decodes a fresh object: the caller may change it
 
 
 def edit_inventory(
-    session: Session, name: str, change: Callable[[Document], None]
+    session: Session, name: str, change: Change, *, settings: Settings | None = None
 ) -> Inventory:
-    """Apply `change` to the current document in place; validate; store a new version."""
+    """Apply `change` to the current document in place; validate; store a new version.
+
+    When `change` returns the folded surfaces it touched, only those terms are
+    validated against the schema and have their rows rewritten.
+    """
+    settings = settings or get_settings()
+    _bound_waits(session, settings)
     inventory = get_inventory(session, name, for_update=True)
     document = current_document(session, inventory)
-    change(document)
+    touched = change(document)
     if document.get("name") != name:
         raise Conflict("an inventory cannot be renamed by an edit")
-    spec = parse_inventory_document(document, version=inventory.version + 1)
-    inventory.version = spec.version
-    _write_rows(session, inventory, spec)
+    _check_size(document, settings)
+    version = inventory.version + 1
+    if touched is None:
+        spec = parse_inventory_document(document, version=version)
+        inventory.version = spec.version
+        _write_rows(session, inventory, spec)
+        return inventory
+    # Incremental: the other terms are canonical already (they come from the snapshot).
+    keys = set(touched)
+    terms = document["terms"]
+    changed = [i for i, entry in enumerate(terms) if fold(entry["term"]) in keys]
+    problems = validate_inventory_document(document, changed_terms=changed)
+    if problems:
+        raise InventoryInvalid(problems)
+    header = parse_inventory_document({**document, "terms": []}, version=version)
+    changed_specs = [parse_term(terms[i]) for i in changed]
+    for i, spec in zip(changed, changed_specs, strict=True):
+        terms[i] = term_to_document(spec)
+    snapshot = {**spec_to_document(header), "terms": terms}
+    inventory.version = version
+    _rewrite_terms(session, inventory, changed_specs, keys)
+    _store_version(session, inventory, header, snapshot)
     return inventory
 
 
-def replace_inventory(session: Session, name: str, document: Document) -> Inventory:
+def replace_inventory(
+    session: Session, name: str, document: Document, *, settings: Settings | None = None
+) -> Inventory:
     """Replace the whole content of `name` with `document`, as a new version."""
 
     def change(current: Document) -> None:
@@ -159,15 +263,16 @@ def replace_inventory(session: Session, name: str, document: Document) -> Invent
         current.update(copy.deepcopy(document))
         current.setdefault("settings", kept_settings)
 
-    return edit_inventory(session, name, change)
+    return edit_inventory(session, name, change, settings=settings)
 
 
 def import_inventory_document(session: Session, data: Document) -> Inventory:
     """Create the inventory, or replace its content as a new version if it exists."""
     name = data.get("name") if isinstance(data, dict) else None
-    if isinstance(name, str) and session.scalars(
-        select(Inventory.id).where(Inventory.name == name)
-    ).first():
+    if (
+        isinstance(name, str)
+        and session.scalars(select(Inventory.id).where(Inventory.name == name)).first()
+    ):
         return replace_inventory(session, name, data)
     return create_inventory(session, data)
 

@@ -48,7 +48,7 @@ def test_batch_pins_inventory_version_and_evidence_watermark(pipeline):
         add_evidence(
             session,
             "tiny-shop",
-            [Evidence(0, "bass", "bass.fish", "We caught a bass.", 11, 15, "import")],
+            [Evidence(0, "bass", "bass.fish", "We caught a bass.", 12, 16, "import")],
         )
     first = pipeline.submit(documents(1))
     edited = pipeline.client.patch(

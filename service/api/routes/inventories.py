@@ -1,7 +1,9 @@
 """Inventories, their versions, terms, senses and examples.
 
-Every write goes through `edit_inventory`, so each one yields a new version
-and a whole-document validation; reads of old versions come from snapshots.
+Every write goes through `edit_inventory`, so each one yields a new version;
+edits of one term, sense or example say which term they touched, so only that
+term is validated and rewritten. They run off the event loop and are not
+committed when the client has gone. Reads of old versions come from snapshots.
 """
 
 from __future__ import annotations
@@ -12,9 +14,10 @@ from fastapi import APIRouter, Depends, Request, Response
 from fastapi.responses import JSONResponse
 from sqlalchemy import select
 from sqlalchemy.orm import Session
+from starlette.concurrency import run_in_threadpool
 
 from service.api.bodies import decode_json_object, decode_utf8, media_type, refuse_nul
-from service.api.deps import admin_key, any_key, get_session
+from service.api.deps import admin_key, any_key, get_session, get_settings_dep
 from service.api.problems import ProblemError
 from service.api.schemas import (
     ExampleIn,
@@ -28,8 +31,9 @@ from service.api.schemas import (
     VersionInfo,
 )
 from service.api.validators import ExampleIndex, OptionalVersion, VersionNumber
+from service.config import Settings
 from service.inventory.csv_format import read_inventory_csv, write_inventory_csv
-from service.inventory.document import inventory_schema
+from service.inventory.document import fold, inventory_schema
 from service.store import inventories as repo
 from service.store.models import Inventory, InventoryVersion
 
@@ -74,6 +78,33 @@ async def _read_document(request: Request, name: str | None) -> dict[str, Any]:
     return decode_json_object(raw, "an inventory document (a JSON object)")
 
 
+async def _commit_unless_gone(request: Request, session: Session) -> None:
+    """Commit, unless the client went away while the edit ran: then nothing is kept."""
+    if await request.is_disconnected():
+        await run_in_threadpool(session.rollback)
+        # Nobody reads this answer; it keeps the rollback out of the error log.
+        raise ProblemError(400, "the client disconnected; nothing was stored")
+    await run_in_threadpool(session.commit)
+
+
+async def _edit(
+    request: Request,
+    session: Session,
+    settings: Settings,
+    name: str,
+    change: repo.Change,
+    *,
+    commit: bool = True,
+) -> Inventory:
+    """Run one edit off the event loop under the store's lock and time bounds."""
+    inventory = await run_in_threadpool(
+        repo.edit_inventory, session, name, change, settings=settings
+    )
+    if commit:
+        await _commit_unless_gone(request, session)
+    return inventory
+
+
 def _export(document: dict[str, Any], request: Request) -> Response:
     if "text/csv" in request.headers.get("accept", ""):
         return Response(write_inventory_csv(document), media_type="text/csv; charset=utf-8")
@@ -103,13 +134,16 @@ async def create_inventory(
     request: Request,
     response: Response,
     name: str | None = None,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> InventorySummary:
     document = await _read_document(request, name)
-    inventory = repo.create_inventory(session, document)
-    summary = _summary(session, inventory)
-    session.commit()
+    inventory = await run_in_threadpool(
+        repo.create_inventory, session, document, settings=settings
+    )
+    summary = await run_in_threadpool(_summary, session, inventory)
+    await _commit_unless_gone(request, session)
     response.headers["Location"] = f"/v1/inventories/{inventory.name}"
     return summary
 
@@ -122,21 +156,24 @@ def get_inventory(
 
 
 @router.patch("/inventories/{name}", response_model=InventorySummary)
-def patch_inventory(
+async def patch_inventory(
     name: str,
     patch: InventoryPatch,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> InventorySummary:
-    def change(document: dict[str, Any]) -> None:
+    def change(document: dict[str, Any]) -> set[str]:
         if patch.description is not None:
             document["description"] = patch.description
         if patch.settings is not None:
             document["settings"].update(patch.settings.model_dump(exclude_unset=True))
+        return set()  # no term touched
 
-    inventory = repo.edit_inventory(session, name, change)
-    summary = _summary(session, inventory)
-    session.commit()
+    inventory = await _edit(request, session, settings, name, change, commit=False)
+    summary = await run_in_threadpool(_summary, session, inventory)
+    await _commit_unless_gone(request, session)
     return summary
 
 
@@ -174,6 +211,7 @@ def export_inventory(
 async def replace_inventory(
     name: str,
     request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> InventorySummary:
@@ -181,9 +219,11 @@ async def replace_inventory(
     if document.get("name", name) != name:
         raise ProblemError(409, f"the document names '{document.get('name')}', not '{name}'")
     document["name"] = name
-    inventory = repo.replace_inventory(session, name, document)
-    summary = _summary(session, inventory)
-    session.commit()
+    inventory = await run_in_threadpool(
+        repo.replace_inventory, session, name, document, settings=settings
+    )
+    summary = await run_in_threadpool(_summary, session, inventory)
+    await _commit_unless_gone(request, session)
     return summary
 
 
@@ -223,14 +263,19 @@ def list_terms(
 
 
 @router.post("/inventories/{name}/terms", status_code=201)
-def add_term(
+async def add_term(
     name: str,
     term: TermIn,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> dict[str, Any]:
-    repo.edit_inventory(session, name, lambda d: d["terms"].append(term.model_dump()))
-    session.commit()
+    def change(document: dict[str, Any]) -> set[str]:
+        document["terms"].append(term.model_dump())
+        return {fold(term.term)}
+
+    await _edit(request, session, settings, name, change)
     return term.model_dump()
 
 
@@ -242,34 +287,42 @@ def get_term(
 
 
 @router.patch("/inventories/{name}/terms/{term}")
-def patch_term(
+async def patch_term(
     name: str,
     term: str,
     patch: TermPatch,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> dict[str, Any]:
     changed: dict[str, Any] = {}
 
-    def change(document: dict[str, Any]) -> None:
+    def change(document: dict[str, Any]) -> set[str]:
         entry = repo.find_term(document, term)
         entry.update(patch.model_dump(exclude_unset=True))
         changed.update(entry)
+        return {fold(entry["term"])}
 
-    repo.edit_inventory(session, name, change)
-    session.commit()
+    await _edit(request, session, settings, name, change)
     return changed
 
 
 @router.delete("/inventories/{name}/terms/{term}", status_code=204)
-def delete_term(
-    name: str, term: str, session: Session = Depends(get_session), _caller: Any = Depends(admin_key)
+async def delete_term(
+    name: str,
+    term: str,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
+    session: Session = Depends(get_session),
+    _caller: Any = Depends(admin_key),
 ) -> Response:
-    def change(document: dict[str, Any]) -> None:
-        document["terms"].remove(repo.find_term(document, term))
+    def change(document: dict[str, Any]) -> set[str]:
+        entry = repo.find_term(document, term)
+        document["terms"].remove(entry)
+        return {fold(entry["term"])}
 
-    repo.edit_inventory(session, name, change)
-    session.commit()
+    await _edit(request, session, settings, name, change)
     return Response(status_code=204)
 
 
@@ -277,18 +330,21 @@ def delete_term(
 
 
 @router.post("/inventories/{name}/terms/{term}/senses", status_code=201)
-def add_sense(
+async def add_sense(
     name: str,
     term: str,
     sense: SenseIn,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> dict[str, Any]:
-    def change(document: dict[str, Any]) -> None:
-        repo.find_term(document, term)["senses"].append(sense.model_dump())
+    def change(document: dict[str, Any]) -> set[str]:
+        entry = repo.find_term(document, term)
+        entry["senses"].append(sense.model_dump())
+        return {fold(entry["term"])}
 
-    repo.edit_inventory(session, name, change)
-    session.commit()
+    await _edit(request, session, settings, name, change)
     return sense.model_dump()
 
 
@@ -305,38 +361,42 @@ def get_sense(
 
 
 @router.patch("/inventories/{name}/senses/{sense_id}")
-def patch_sense(
+async def patch_sense(
     name: str,
     sense_id: str,
     patch: SensePatch,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> dict[str, Any]:
     changed: dict[str, Any] = {}
 
-    def change(document: dict[str, Any]) -> None:
-        _, sense = repo.find_sense(document, sense_id)
+    def change(document: dict[str, Any]) -> set[str]:
+        entry, sense = repo.find_sense(document, sense_id)
         sense.update(patch.model_dump(exclude_unset=True))
         changed.update(sense)
+        return {fold(entry["term"])}
 
-    repo.edit_inventory(session, name, change)
-    session.commit()
+    await _edit(request, session, settings, name, change)
     return changed
 
 
 @router.delete("/inventories/{name}/senses/{sense_id}", status_code=204)
-def delete_sense(
+async def delete_sense(
     name: str,
     sense_id: str,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> Response:
-    def change(document: dict[str, Any]) -> None:
+    def change(document: dict[str, Any]) -> set[str]:
         term, sense = repo.find_sense(document, sense_id)
         term["senses"].remove(sense)
+        return {fold(term["term"])}
 
-    repo.edit_inventory(session, name, change)
-    session.commit()
+    await _edit(request, session, settings, name, change)
     return Response(status_code=204)
 
 
@@ -358,22 +418,24 @@ def list_examples(
 @router.post(
     "/inventories/{name}/senses/{sense_id}/examples", status_code=201, response_model=ExampleOut
 )
-def add_example(
+async def add_example(
     name: str,
     sense_id: str,
     example: ExampleIn,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> ExampleOut:
     position: list[int] = []
 
-    def change(document: dict[str, Any]) -> None:
-        _, sense = repo.find_sense(document, sense_id)
+    def change(document: dict[str, Any]) -> set[str]:
+        term, sense = repo.find_sense(document, sense_id)
         sense.setdefault("examples", []).append(example.text)
         position.append(len(sense["examples"]) - 1)
+        return {fold(term["term"])}
 
-    repo.edit_inventory(session, name, change)
-    session.commit()
+    await _edit(request, session, settings, name, change)
     return ExampleOut(index=position[0], text=example.text)
 
 
@@ -383,37 +445,41 @@ def _example_at(sense: dict[str, Any], index: int) -> None:
 
 
 @router.put("/inventories/{name}/senses/{sense_id}/examples/{index}", response_model=ExampleOut)
-def replace_example(
+async def replace_example(
     name: str,
     sense_id: str,
     index: ExampleIndex,
     example: ExampleIn,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> ExampleOut:
-    def change(document: dict[str, Any]) -> None:
-        _, sense = repo.find_sense(document, sense_id)
+    def change(document: dict[str, Any]) -> set[str]:
+        term, sense = repo.find_sense(document, sense_id)
         _example_at(sense, index)
         sense["examples"][index] = example.text
+        return {fold(term["term"])}
 
-    repo.edit_inventory(session, name, change)
-    session.commit()
+    await _edit(request, session, settings, name, change)
     return ExampleOut(index=index, text=example.text)
 
 
 @router.delete("/inventories/{name}/senses/{sense_id}/examples/{index}", status_code=204)
-def delete_example(
+async def delete_example(
     name: str,
     sense_id: str,
     index: ExampleIndex,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     _caller: Any = Depends(admin_key),
 ) -> Response:
-    def change(document: dict[str, Any]) -> None:
-        _, sense = repo.find_sense(document, sense_id)
+    def change(document: dict[str, Any]) -> set[str]:
+        term, sense = repo.find_sense(document, sense_id)
         _example_at(sense, index)
         del sense["examples"][index]
+        return {fold(term["term"])}
 
-    repo.edit_inventory(session, name, change)
-    session.commit()
+    await _edit(request, session, settings, name, change)
     return Response(status_code=204)
