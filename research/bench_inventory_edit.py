@@ -68,9 +68,8 @@ def main() -> None:
         with database.session_scope(settings) as session:
             create_inventory(session, big_inventory(args.terms), settings=settings)
             token = create_key(session, "admin").token
-        print(
-            f"created {args.terms} terms in {time.perf_counter() - started:.1f} s ({url.split(':')[0]})"
-        )
+        took = time.perf_counter() - started
+        print(f"created {args.terms} terms in {took:.1f} s ({url.split(':')[0]})")
         headers = {"Authorization": f"Bearer {token}"}
         middle = args.terms // 2
         with TestClient(create_app(settings)) as client:

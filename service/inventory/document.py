@@ -130,9 +130,14 @@ def validate_inventory_document(
                 problems += _schema_problems(one_term, terms[index], ("terms", index))
     if problems:
         return problems
+    terms = data["terms"]
+    keys = [fold(s) for term in terms for s in (term["term"], *term.get("aliases", ()))]
+    ids = [sense["id"] for term in terms for sense in term["senses"]]
+    if len(set(keys)) == len(keys) and len(set(ids)) == len(ids):
+        return problems  # the common case, without building a pointer per row
     surfaces: dict[str, str] = {}
     sense_ids: dict[str, str] = {}
-    for t, term in enumerate(data["terms"]):
+    for t, term in enumerate(terms):
         for a, surface in enumerate([term["term"], *term.get("aliases", [])]):
             where = f"/terms/{t}/term" if a == 0 else f"/terms/{t}/aliases/{a - 1}"
             key = fold(surface)

@@ -75,31 +75,33 @@ def _with_default_settings(document: Document) -> Document:
 
 
 def _add_term_rows(session: Session, inventory: Inventory, term: TermSpec, position: int) -> None:
-    term_row = Term(
-        inventory_id=inventory.id,
-        term=term.term,
-        folded=fold(term.term),
-        aliases=list(term.aliases),
-        case_rule=term.case,
-        pos=term.pos,
-        inflect=term.inflect,
-        position=position,
-    )
-    session.add(term_row)
-    session.flush()
-    for s, sense in enumerate(term.senses):
-        sense_row = Sense(
+    """Queue the rows of one term (the caller flushes: inserts go out in batches)."""
+    session.add(
+        Term(
             inventory_id=inventory.id,
-            term_id=term_row.id,
-            sense_key=sense.sense_id,
-            gloss=sense.gloss,
-            tags=list(sense.tags),
-            position=s,
+            term=term.term,
+            folded=fold(term.term),
+            aliases=list(term.aliases),
+            case_rule=term.case,
+            pos=term.pos,
+            inflect=term.inflect,
+            position=position,
+            senses=[
+                Sense(
+                    inventory_id=inventory.id,
+                    sense_key=sense.sense_id,
+                    gloss=sense.gloss,
+                    tags=list(sense.tags),
+                    position=s,
+                    examples=[
+                        SenseExample(text=example, position=e)
+                        for e, example in enumerate(sense.examples)
+                    ],
+                )
+                for s, sense in enumerate(term.senses)
+            ],
         )
-        sense_row.examples = [
-            SenseExample(text=example, position=e) for e, example in enumerate(sense.examples)
-        ]
-        session.add(sense_row)
+    )
 
 
 def _store_version(

@@ -15,12 +15,12 @@ from typing import Any
 
 import pytest
 import schemathesis
-from schemathesis import GenerationMode
-from schemathesis.core.failures import FailureGroup
 from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, Phase, given
 from hypothesis import settings as hypothesis_settings
 from hypothesis.errors import Unsatisfiable
+from schemathesis import GenerationMode
+from schemathesis.core.failures import FailureGroup
 
 from service.api.app import create_app
 from service.config import get_settings

@@ -40,6 +40,12 @@ def _stored(settings) -> tuple[int, int]:
         )
 
 
+def _batch(metadata_value: str) -> str:
+    """A one-document batch body whose metadata member "x" is `metadata_value`, verbatim."""
+    document = f'{{"id": "a", "text": "x", "metadata": {{"x": {metadata_value}}}}}'
+    return f'{{"inventory": "tiny-shop", "documents": [{document}]}}'
+
+
 def _post(client, url, text, headers, media="application/json"):
     return client.post(url, content=text.encode(), headers={**headers, "Content-Type": media})
 
@@ -49,7 +55,7 @@ def test_deep_json_is_refused_naming_the_limit_everywhere(client, admin, setting
     bodies = [
         (
             "/v1/batches",
-            f'{{"inventory": "tiny-shop", "documents": [{{"id": "a", "text": "x", "metadata": {{"x": {deep}}}}}]}}',
+            _batch(deep),
             "application/json",
         ),
         (
@@ -70,7 +76,7 @@ def test_deep_json_is_refused_naming_the_limit_everywhere(client, admin, setting
         assert body["limit"] == "max_json_depth", url
         assert str(settings.max_json_depth) in body["detail"]
     within = _deep(settings.max_json_depth - 4)  # nesting under the bound decodes as usual
-    doc = f'{{"inventory": "tiny-shop", "documents": [{{"id": "a", "text": "x", "metadata": {{"x": {within}}}}}]}}'
+    doc = _batch(within)
     assert _post(client, "/v1/batches", doc, admin).status_code == 202
     assert _stored(settings) == (1, 1)
 
@@ -121,8 +127,7 @@ def test_integers_past_the_database_range_are_refused(client, admin):
 
 def test_numbers_json_cannot_carry_are_refused(client, admin, settings):
     for number in ("1e400", "-1e400", "NaN", "Infinity"):
-        doc = f'{{"inventory": "tiny-shop", "documents": [{{"id": "a", "text": "x", "metadata": {{"n": {number}}}}}]}}'
-        assert_problem(_post(client, "/v1/batches", doc, admin), 422)
+        assert_problem(_post(client, "/v1/batches", _batch(number), admin), 422)
     patch = '{"settings": {"temperature": 1e400}}'
     assert_problem(
         client.patch(
