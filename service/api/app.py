@@ -23,6 +23,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service import __version__
 from service.api import metrics
 from service.api.bodies import BodyGuard
+from service.api.contract import forbid_nul
 from service.api.problems import declare_responses, install_problem_handlers, problem_response
 from service.api.routes import batches, disambiguate, evidence, health, inventories
 from service.config import Settings, get_settings
@@ -169,6 +170,7 @@ def _mount_docs(app: FastAPI) -> None:
                 _openapi_components(inventory_schema())
             )
             declare_responses(schema)
+            forbid_nul(schema)
             app.openapi_schema = schema
         return app.openapi_schema
 

@@ -60,7 +60,20 @@ PROBLEM_SCHEMA: dict[str, Any] = {
 # Which problems an operation can answer with, by what it takes; one table for every route.
 _EVERY_ROUTE = (404, 422)
 _AUTHENTICATED = (401, 403, 503)
-_WITH_BODY = (400, 413, 415)
+_WITH_BODY = (400, 409, 413, 415)
+
+
+_TEXT = {"schema": {"type": "string"}}
+# Success answers that are not (only) JSON: (method, path) -> media types of the 2xx answer;
+# `replace` drops the application/json FastAPI assumes.
+_SUCCESS_MEDIA: dict[tuple[str, str], tuple[bool, dict[str, Any]]] = {
+    ("get", "/metrics"): (True, {"text/plain": _TEXT}),
+    ("get", "/v1/schemas/inventory"): (True, {"application/schema+json": {"schema": {}}}),
+    ("get", "/v1/inventories/{name}/document"): (False, {"text/csv": _TEXT}),
+    ("get", "/v1/inventories/{name}/versions/{version}"): (False, {"text/csv": _TEXT}),
+    ("get", "/v1/batches/{batch_id}/results"): (False, {"application/x-ndjson": _TEXT}),
+    ("get", "/v1/batches/{batch_id}/summaries"): (False, {"application/x-ndjson": _TEXT}),
+}
 
 
 def problem_statuses(path: str, method: str, has_body: bool) -> tuple[int, ...]:
@@ -89,6 +102,13 @@ def declare_responses(schema: dict[str, Any]) -> None:
             if not isinstance(operation, dict) or "responses" not in operation:
                 continue
             responses = operation["responses"]
+            if (method, path) in _SUCCESS_MEDIA:
+                replace, media = _SUCCESS_MEDIA[(method, path)]
+                success = next(code for code in responses if code.startswith("2"))
+                declared = responses[success].setdefault("content", {})
+                if replace:
+                    declared.clear()
+                declared.update(media)
             for status in problem_statuses(path, method, "requestBody" in operation):
                 responses[str(status)] = {"description": _TITLES[status][1], "content": content}
 

@@ -2,10 +2,18 @@
 
 from __future__ import annotations
 
-from datetime import datetime
-from typing import Literal
+from datetime import UTC, datetime
+from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field
+
+
+def _aware(value: datetime) -> datetime:
+    """SQLite hands back naive UTC datetimes; RFC 3339 date-time needs the offset."""
+    return value if value.tzinfo is not None else value.replace(tzinfo=UTC)
+
+
+Timestamp = Annotated[datetime, AfterValidator(_aware)]
 
 
 class Strict(BaseModel):
@@ -13,7 +21,7 @@ class Strict(BaseModel):
 
 
 class SenseIn(Strict):
-    id: str = Field(min_length=1, max_length=200, pattern=r"^\S+$")
+    id: str = Field(min_length=1, max_length=200, pattern=r"^[^\s\x00\x1c-\x1f\x85\ufeff]+$")
     gloss: str = Field(min_length=1, max_length=5000)
     examples: list[str] = []
     tags: list[str] = []
@@ -63,12 +71,12 @@ class InventorySummary(BaseModel):
     terms: int
     senses: int
     settings: dict[str, float | None]
-    updated_at: datetime
+    updated_at: Timestamp
 
 
 class VersionInfo(BaseModel):
     version: int
-    created_at: datetime
+    created_at: Timestamp
 
 
 class ExampleOut(BaseModel):
@@ -79,6 +87,39 @@ class ExampleOut(BaseModel):
 _OPTIONS_SCHEMA = {
     "type": "object",
     "properties": {"rationale": {"type": "boolean", "default": True}},
+    "additionalProperties": False,
+}
+
+
+# A submitted document (service/batches/documents.py is the validator; this says the same).
+DOCUMENT_SCHEMA: dict = {
+    "type": "object",
+    "description": "A document: 'text' and/or named 'fields' (at least one), free 'metadata'. "
+    "Ids are unique within a request.",
+    "required": ["id"],
+    "additionalProperties": False,
+    "properties": {
+        "id": {
+            "type": "string",
+            "minLength": 1,
+            "maxLength": 200,
+            "pattern": "^[^\\x00]*[^\\s\\x00\\x1c-\\x1f\\x85\\ufeff][^\\x00]*$",
+        },
+        "text": {"type": "string"},
+        "fields": {
+            "type": "object",
+            "minProperties": 1,
+            "propertyNames": {
+                "minLength": 1,
+                "maxLength": 100,
+                "pattern": "^[^\\x00]*$",
+                "not": {"const": "text"},
+            },
+            "additionalProperties": {"type": "string"},
+        },
+        "metadata": {"type": "object"},
+    },
+    "anyOf": [{"required": ["text"]}, {"required": ["fields"]}],
 }
 
 
@@ -87,9 +128,10 @@ def documents_body_schema(**more_properties: dict) -> dict:
     return {
         "type": "object",
         "required": ["inventory", "documents"],
+        "additionalProperties": False,
         "properties": {
-            "inventory": {"type": "string"},
-            "documents": {"type": "array", "items": {"type": "object"}},
+            "inventory": {"type": "string", "minLength": 1},
+            "documents": {"type": "array", "minItems": 1, "items": DOCUMENT_SCHEMA},
             "options": _OPTIONS_SCHEMA,
             **more_properties,
         },

@@ -16,7 +16,7 @@ from typing import Any
 import pytest
 import schemathesis
 from fastapi.testclient import TestClient
-from hypothesis import HealthCheck, Phase, given
+from hypothesis import HealthCheck, Phase, assume, given
 from hypothesis import settings as hypothesis_settings
 from hypothesis.errors import Unsatisfiable
 from schemathesis import GenerationMode
@@ -28,7 +28,7 @@ from service.store import database
 from service.store.keys import create_key
 from tests.conftest import SMALL_INVENTORY, bearer
 
-CASES_PER_OPERATION = 4
+CASES_PER_OPERATION = 2
 
 
 @pytest.fixture
@@ -65,6 +65,11 @@ def _fuzz(operation: Any, mode: GenerationMode, token: str) -> list[str]:
         suppress_health_check=list(HealthCheck),
     )
     def run(case: Any) -> None:
+        # Out of the fuzzer's reach, each with hand-written tests: CSV and NDJSON bodies
+        # (plain strings to the schema: their structure cannot be stated in it) and
+        # callback URLs (accepted only if their host resolves to a public address).
+        assume(case.media_type in (None, "application/json"))
+        assume(not (isinstance(case.body, dict) and "callback_url" in case.body))
         try:
             case.call_and_validate(headers=bearer(token))
         except (AssertionError, FailureGroup) as exc:  # a check failed

@@ -5,11 +5,12 @@ from __future__ import annotations
 from typing import Any
 
 from fastapi import APIRouter, Depends
-from pydantic import BaseModel, Field
+from pydantic import Field
 from sqlalchemy.orm import Session
 
 from service.api.deps import admin_key, any_key, get_session, get_settings_dep
 from service.api.problems import ProblemError
+from service.api.schemas import Strict
 from service.config import Settings
 from service.engine import OccurrenceFinder
 from service.engine.types import Evidence, InventorySpec
@@ -20,7 +21,7 @@ from service.tagging.engines import shared_engines
 router = APIRouter(prefix="/v1", tags=["evidence"])
 
 
-class LabeledOccurrenceIn(BaseModel):
+class LabeledOccurrenceIn(Strict):
     """One labeled occurrence: `text[start:end]` is the term, `sense` its sense id."""
 
     text: str = Field(min_length=1, max_length=20_000)
@@ -30,7 +31,7 @@ class LabeledOccurrenceIn(BaseModel):
     sense: str = Field(min_length=1, max_length=200)
 
 
-class EvidenceIn(BaseModel):
+class EvidenceIn(Strict):
     occurrences: list[LabeledOccurrenceIn] = Field(min_length=1, max_length=10_000)
 
 
