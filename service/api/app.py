@@ -28,7 +28,7 @@ from service.api.problems import declare_responses, install_problem_handlers, pr
 from service.api.routes import batches, disambiguate, evidence, health, inventories
 from service.config import Settings, get_settings
 from service.inventory.document import inventory_schema
-from service.store.database import require_migrated, session_factory
+from service.store.database import read_session_factory, require_migrated, session_factory
 
 DESCRIPTION = (
     "Tells which sense of an ambiguous term each occurrence in your documents carries. "
@@ -126,6 +126,7 @@ def create_app(settings: Settings | None = None, *, check_migrated: bool = True)
     )
     app.state.settings = settings
     app.state.sessions = session_factory(settings.database_url)
+    app.state.read_sessions = read_session_factory(settings.database_url)
     install_problem_handlers(app)
     app.add_middleware(BodyGuard, max_json_depth=settings.max_json_depth)
     app.add_middleware(BodyLimit, limit=settings.max_request_bytes)

@@ -216,7 +216,7 @@ def list_results(
                 s, batch_id, chosen, after=position, limit=STREAM_PAGE
             )
 
-        return _stream(request.app.state.sessions, page, after)
+        return _stream(request.app.state.read_sessions, page, after)
     rows, following = batch_results.results_page(
         session,
         batch_id,
@@ -260,7 +260,7 @@ def list_summaries(
 
     if _wants_ndjson(request):
         session.rollback()
-        return _stream(request.app.state.sessions, page, start)
+        return _stream(request.app.state.read_sessions, page, start)
     rows, following = page(session, start, limit)
     return JSONResponse(
         {
