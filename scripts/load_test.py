@@ -1,7 +1,8 @@
 """Bounded load run of the batch pipeline on loopback; prints throughput, latency, errors
 and a final reconciliation (every submitted occurrence has exactly one result).
 
-Creates a fresh temporary PostgreSQL database, migrates it, loads the demo inventory
+Creates a fresh temporary database (PostgreSQL, or a SQLite file with --backend sqlite),
+migrates it, loads the demo inventory
 (demo_corpus/inventory.json), starts `whichsense serve --no-worker` and N `whichsense
 worker` processes against it, then runs C concurrent clients for D seconds. Each client
 loops: submit a small batch of demo documents (alternately JSON and NDJSON), poll its
@@ -9,6 +10,7 @@ status until it ends, read its results as NDJSON. Afterwards it waits (bounded) 
 batch to end, checks the database, stops everything and drops the database.
 
     .venv/bin/python scripts/load_test.py --duration 60 --clients 50 --workers 2
+    .venv/bin/python scripts/load_test.py --backend sqlite --duration 60 --clients 30 --workers 1
 
 Not a test: the figures depend on the machine and on what else runs on it.
 """
@@ -180,13 +182,17 @@ def main() -> int:
     parser.add_argument("--batch-size", type=int, default=3, help="documents per batch")
     parser.add_argument("--drain-timeout", type=float, default=600.0)
     parser.add_argument("--admin-url", default=DEFAULT_ADMIN_URL)
+    parser.add_argument("--backend", choices=("postgres", "sqlite"), default="postgres")
     args = parser.parse_args()
 
     name = f"whichsense_load_{uuid.uuid4().hex[:8]}"
     admin = create_engine(args.admin_url, isolation_level="AUTOCOMMIT")
-    with admin.connect() as conn:
-        conn.execute(text(f'CREATE DATABASE "{name}"'))
-    url = make_url(args.admin_url).set(database=name).render_as_string(hide_password=False)
+    if args.backend == "sqlite":
+        url = f"sqlite:///{Path(tempfile.mkdtemp(prefix='whichsense-load-db-')) / 'load.db'}"
+    else:
+        with admin.connect() as conn:
+            conn.execute(text(f'CREATE DATABASE "{name}"'))
+        url = make_url(args.admin_url).set(database=name).render_as_string(hide_password=False)
     env = {k: v for k, v in os.environ.items() if not k.startswith("WHICHSENSE_")}
     env.update(WHICHSENSE_DATABASE_URL=url, HF_HUB_OFFLINE="1", TRANSFORMERS_OFFLINE="1")
     cli = [sys.executable, "-m", "service.cli.main"]
@@ -242,7 +248,7 @@ def main() -> int:
         stats = Stats()
         print(
             f"load: {args.clients} clients x {args.duration:.0f} s, batches of {args.batch_size} "
-            f"demo documents, {args.workers} workers, PostgreSQL {name}, logs {logs}"
+            f"demo documents, {args.workers} workers, {args.backend} {url}, logs {logs}"
         )
         started = time.perf_counter()
         deadline = time.monotonic() + args.duration
@@ -269,11 +275,14 @@ def main() -> int:
             f"requests: {requests}  ({requests / elapsed:.1f}/s)   "
             f"errors: {sum(stats.errors.values())}"
         )
-        print(f"{'route':34} {'count':>7} {'req/s':>7} {'p50 ms':>8} {'p95 ms':>8}")
+        print(
+            f"{'route':34} {'count':>7} {'req/s':>7} {'p50 ms':>8} {'p95 ms':>8} {'max ms':>8}"
+        )
         for route, values in sorted(stats.latency.items()):
             print(
                 f"{route:34} {len(values):7d} {len(values) / elapsed:7.1f} "
-                f"{percentile(values, 0.5) * 1000:8.1f} {percentile(values, 0.95) * 1000:8.1f}"
+                f"{percentile(values, 0.5) * 1000:8.1f} {percentile(values, 0.95) * 1000:8.1f} "
+                f"{max(values) * 1000:8.1f}"
             )
         for error, count in sorted(stats.errors.items()):
             print(f"  error {error}: {count}")
@@ -302,8 +311,9 @@ def main() -> int:
                 process.wait(60)
             except subprocess.TimeoutExpired:
                 process.kill()
-        with admin.connect() as conn:
-            conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+        if args.backend == "postgres":
+            with admin.connect() as conn:
+                conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
         admin.dispose()
 
 

@@ -87,6 +87,34 @@ class Settings(BaseSettings):
     max_sync_documents: int = Field(
         default=16, gt=0, description="Documents accepted by POST /v1/disambiguate. Over it: 413."
     )
+    max_json_depth: int = Field(
+        default=64,
+        gt=0,
+        le=500,
+        description="Deepest nesting of arrays/objects in a JSON body or NDJSON line. "
+        "Over it: 413.",
+    )
+    max_terms_per_inventory: int = Field(
+        default=20_000, gt=0, description="Terms in one inventory. Over it: 413."
+    )
+    max_senses_per_inventory: int = Field(
+        default=100_000, gt=0, description="Senses in one inventory (all terms). Over it: 413."
+    )
+    statement_timeout_seconds: float = Field(
+        default=30.0,
+        gt=0,
+        description="Longest one SQL statement of an inventory edit may run. Over it: 503.",
+    )
+    lock_timeout_seconds: float = Field(
+        default=5.0,
+        gt=0,
+        description="Longest an inventory edit waits for the inventory's lock. Over it: 503.",
+    )
+    shutdown_grace_seconds: float = Field(
+        default=5.0,
+        gt=0,
+        description="On SIGTERM, how long in-flight requests may finish before they are cut off.",
+    )
     chunk_size: int = Field(
         default=64, gt=0, description="Documents a worker leases at once (one engine call)."
     )

@@ -22,7 +22,9 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service import __version__
 from service.api import metrics, queue_metrics
-from service.api.problems import install_problem_handlers, problem_response
+from service.api.bodies import BodyGuard
+from service.api.contract import forbid_nul
+from service.api.problems import declare_responses, install_problem_handlers, problem_response
 from service.api.routes import (
     audit,
     batches,
@@ -36,7 +38,7 @@ from service.api.routes import (
 )
 from service.config import Settings
 from service.inventory.document import inventory_schema
-from service.store.database import require_migrated, session_factory
+from service.store.database import read_session_factory, require_migrated, session_factory
 from service.web import pages
 
 DESCRIPTION = (
@@ -134,8 +136,10 @@ def create_app(settings: Settings, *, check_migrated: bool = True) -> FastAPI:
     )
     app.state.settings = settings
     app.state.sessions = session_factory(settings.database_url)
+    app.state.read_sessions = read_session_factory(settings.database_url)
     app.state.metric_registries = (queue_metrics.queue_registry(app.state.sessions),)
     install_problem_handlers(app)
+    app.add_middleware(BodyGuard, max_json_depth=settings.max_json_depth)
     app.add_middleware(BodyLimit, limit=settings.max_request_bytes)
     app.add_middleware(metrics.RequestMetrics)
     app.include_router(home.router)
@@ -182,6 +186,8 @@ def _mount_docs(app: FastAPI) -> None:
             schema.setdefault("components", {}).setdefault("schemas", {}).update(
                 _openapi_components(inventory_schema())
             )
+            declare_responses(schema)
+            forbid_nul(schema)
             app.openapi_schema = schema
         return app.openapi_schema
 

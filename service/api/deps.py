@@ -20,8 +20,12 @@ def get_settings_dep(request: Request) -> Settings:
 
 
 def get_session(request: Request) -> Iterator[Session]:
-    """A session per request; routes commit what they write, anything else rolls back."""
-    session: Session = request.app.state.sessions()
+    """A session per request; routes commit what they write, anything else rolls back.
+
+    GET and HEAD only read: their session does not take SQLite's write lock.
+    """
+    reads = request.method in ("GET", "HEAD")
+    session: Session = (request.app.state.read_sessions if reads else request.app.state.sessions)()
     try:
         yield session
     finally:

@@ -11,15 +11,15 @@ from service.engine.types import ABSTAIN_THRESHOLD_BOUNDS, REVIEW_THRESHOLD_BOUN
 from service.store.clock import rfc3339
 
 Timestamp = Annotated[datetime, PlainSerializer(rfc3339, return_type=str)]
-"""A time in an answer: RFC 3339, UTC, with a `Z`."""
+"""A time in an answer: RFC 3339, UTC, with a `Z` (SQLite's naive times are UTC)."""
 
 
 class Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False)
 
 
 class SenseIn(Strict):
-    id: str = Field(min_length=1, max_length=200, pattern=r"^\S+$")
+    id: str = Field(min_length=1, max_length=200, pattern=r"^[^\s\x00\x1c-\x1f\x85\ufeff]+$")
     gloss: str = Field(min_length=1, max_length=5000)
     examples: list[str] = []
     tags: list[str] = []
@@ -92,6 +92,39 @@ class ExampleOut(BaseModel):
 _OPTIONS_SCHEMA = {
     "type": "object",
     "properties": {"rationale": {"type": "boolean", "default": True}},
+    "additionalProperties": False,
+}
+
+
+# A submitted document (service/batches/documents.py is the validator; this says the same).
+DOCUMENT_SCHEMA: dict = {
+    "type": "object",
+    "description": "A document: 'text' and/or named 'fields' (at least one), free 'metadata'. "
+    "Ids are unique within a request.",
+    "required": ["id"],
+    "additionalProperties": False,
+    "properties": {
+        "id": {
+            "type": "string",
+            "minLength": 1,
+            "maxLength": 200,
+            "pattern": "^[^\\x00]*[^\\s\\x00\\x1c-\\x1f\\x85\\ufeff][^\\x00]*$",
+        },
+        "text": {"type": "string"},
+        "fields": {
+            "type": "object",
+            "minProperties": 1,
+            "propertyNames": {
+                "minLength": 1,
+                "maxLength": 100,
+                "pattern": "^[^\\x00]*$",
+                "not": {"const": "text"},
+            },
+            "additionalProperties": {"type": "string"},
+        },
+        "metadata": {"type": "object"},
+    },
+    "anyOf": [{"required": ["text"]}, {"required": ["fields"]}],
 }
 
 
@@ -100,9 +133,10 @@ def documents_body_schema(**more_properties: dict) -> dict:
     return {
         "type": "object",
         "required": ["inventory", "documents"],
+        "additionalProperties": False,
         "properties": {
-            "inventory": {"type": "string"},
-            "documents": {"type": "array", "items": {"type": "object"}},
+            "inventory": {"type": "string", "minLength": 1},
+            "documents": {"type": "array", "minItems": 1, "items": DOCUMENT_SCHEMA},
             "options": _OPTIONS_SCHEMA,
             **more_properties,
         },

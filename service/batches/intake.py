@@ -29,12 +29,13 @@ import anyio.to_thread
 from sqlalchemy.orm import Session
 
 from service.batches.documents import DocumentInvalid, InputDocument, parse_document
-from service.batches.errors import Refused
 from service.batches.lines import LineTooLong, numbered_lines
 from service.batches.repository import DocumentSink, find_by_idempotency_key, start_batch
 from service.batches.webhooks.urls import WebhookUrlRefused, check_url
 from service.config import Settings
 from service.engine import OccurrenceFinder
+from service.json_text import loads
+from service.refusal import Refused
 from service.store.clock import database_now
 from service.store.models import Batch
 from service.tagging.engines import shared_engines
@@ -71,7 +72,7 @@ def _json_object(raw: bytes | bytearray, expected: str) -> dict[str, Any]:
             "malformed", f"the body is not UTF-8 (byte {exc.start})", kind="bad-encoding"
         ) from None
     try:
-        data = json.loads(text)
+        data = loads(text)
     except json.JSONDecodeError as exc:
         raise Refused(
             "malformed",
@@ -303,7 +304,11 @@ class Intake:
                 if not line.strip():
                     continue
                 try:
-                    item = json.loads(line.decode("utf-8"))
+                    item = loads(
+                        line.decode("utf-8"),
+                        max_depth=self.settings.max_json_depth,
+                        where=f"line {number}",
+                    )
                 except UnicodeDecodeError as exc:
                     raise Refused(
                         "malformed",

@@ -1,8 +1,12 @@
-"""`whichsense keys create|list|revoke`: API keys (shown once, stored hashed)."""
+"""`whichsense keys create|list|revoke|rotate-secret`: API keys (shown once, stored hashed).
+
+Every key belongs to one team (`--team`; may be left out while there is one
+team, and on an empty database a team `default` is made)."""
 
 from __future__ import annotations
 
 import argparse
+import json
 from typing import TYPE_CHECKING
 
 from service.cli.teams import add_team_option, team_id
@@ -18,7 +22,17 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     create = actions.add_parser("create", help="create a key and print it once")
     create.add_argument("--scope", choices=SCOPES, required=True)
     create.add_argument("--label", default="", help="who or what uses the key")
-    create.add_argument("--quiet", action="store_true", help="print only the key")
+    output = create.add_mutually_exclusive_group()
+    output.add_argument(
+        "--quiet",
+        action="store_true",
+        help="print one line: the API key, a space, the webhook signing secret",
+    )
+    output.add_argument(
+        "--json",
+        action="store_true",
+        help="print key_id, team, scope, key and signing_secret as JSON",
+    )
     add_team_option(create)
     create.set_defaults(func=run_create)
     listing = actions.add_parser("list", help="list keys (never their secrets)")
@@ -27,6 +41,11 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     revoke = actions.add_parser("revoke", help="revoke a key by its id")
     revoke.add_argument("key_id")
     revoke.set_defaults(func=run_revoke)
+    rotate = actions.add_parser(
+        "rotate-secret", help="give a key a new webhook signing secret and print it once"
+    )
+    rotate.add_argument("key_id")
+    rotate.set_defaults(func=run_rotate_secret)
 
 
 def run_create(args: argparse.Namespace, settings: Settings) -> int:
@@ -38,8 +57,22 @@ def run_create(args: argparse.Namespace, settings: Settings) -> int:
         team = team_id(session, args.team)
         issued = create_key(session, team, args.scope, args.label)
         team_name = session.get_one(Team, team).name
+    if args.json:
+        print(
+            json.dumps(
+                {
+                    "key_id": issued.key_id,
+                    "team": team_name,
+                    "scope": issued.scope,
+                    "key": issued.token,
+                    "signing_secret": issued.signing_secret,
+                }
+            )
+        )
+        return 0
     if args.quiet:
-        print(issued.token)
+        # Both secrets, or the signing secret could never be recovered: `read KEY SECRET`.
+        print(f"{issued.token} {issued.signing_secret}")
         return 0
     print(f"key id:          {issued.key_id}")
     print(f"team:            {team_name}")
@@ -72,4 +105,14 @@ def run_revoke(args: argparse.Namespace, settings: Settings) -> int:
     with session_scope(settings) as session:
         key = revoke_key(session, args.key_id)
     print(f"revoked {key.key_id}")
+    return 0
+
+
+def run_rotate_secret(args: argparse.Namespace, settings: Settings) -> int:
+    from service.store.database import session_scope
+    from service.store.keys import rotate_signing_secret
+
+    with session_scope(settings) as session:
+        secret = rotate_signing_secret(session, args.key_id)
+    print(secret)
     return 0

@@ -34,5 +34,12 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
         attach(app, settings)
     host = args.host if args.host is not None else settings.host
     port = args.port if args.port is not None else settings.port
-    uvicorn.run(app, host=host, port=port, log_level="info")
+    uvicorn.run(
+        app,
+        host=host,
+        port=port,
+        log_level="info",
+        # SIGTERM: stop accepting, let requests in flight finish this long, then cut them off.
+        timeout_graceful_shutdown=max(1, round(settings.shutdown_grace_seconds)),
+    )
     return 0

@@ -8,6 +8,7 @@ express. Every problem carries a JSON Pointer so a curator finds the row.
 from __future__ import annotations
 
 import json
+from collections.abc import Collection
 from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
@@ -48,6 +49,36 @@ class InventoryInvalid(ValueError):
         super().__init__(f"{first.pointer or '/'}: {first.message}{more}")
 
 
+class InventoryTooLarge(ValueError):
+    """The document has more terms or senses than the configured cap; `limit` names it."""
+
+    def __init__(self, message: str, limit: str):
+        super().__init__(message)
+        self.limit = limit
+
+
+def check_inventory_size(data: Any, *, max_terms: int, max_senses: int) -> None:
+    """Raise InventoryTooLarge past the caps (shape errors are left to validation)."""
+    terms = data.get("terms") if isinstance(data, dict) else None
+    if not isinstance(terms, list):
+        return
+    if len(terms) > max_terms:
+        raise InventoryTooLarge(
+            f"the inventory has {len(terms)} terms; the limit is {max_terms} "
+            "(WHICHSENSE_MAX_TERMS_PER_INVENTORY)",
+            "max_terms_per_inventory",
+        )
+    senses = sum(
+        len(t["senses"]) for t in terms if isinstance(t, dict) and isinstance(t.get("senses"), list)
+    )
+    if senses > max_senses:
+        raise InventoryTooLarge(
+            f"the inventory has {senses} senses; the limit is {max_senses} "
+            "(WHICHSENSE_MAX_SENSES_PER_INVENTORY)",
+            "max_senses_per_inventory",
+        )
+
+
 @lru_cache(maxsize=1)
 def inventory_schema() -> dict[str, Any]:
     """The published JSON Schema of the inventory document.
@@ -75,21 +106,56 @@ def fold(surface: str) -> str:
     return " ".join(surface.casefold().split())
 
 
-def validate_inventory_document(data: Any) -> list[InventoryProblem]:
-    """Every problem in `data`, schema errors first; empty when the document is valid."""
-    validator = Draft202012Validator(inventory_schema())
+@lru_cache(maxsize=1)
+def _validators() -> tuple[Draft202012Validator, Draft202012Validator]:
+    """Validators for the whole document and for one term entry (same $defs)."""
+    schema = inventory_schema()
+    term = {"$ref": "#/$defs/term", "$defs": schema["$defs"]}
+    return Draft202012Validator(schema), Draft202012Validator(term)
+
+
+def _schema_problems(
+    validator: Draft202012Validator, data: Any, prefix: tuple[Any, ...] = ()
+) -> list[InventoryProblem]:
     problems: list[InventoryProblem] = []
     seen: set[str] = set()
     for error in sorted(validator.iter_errors(data), key=lambda e: list(map(str, e.path))):
-        pointer = _pointer(error.absolute_path)
+        pointer = _pointer((*prefix, *error.absolute_path))
         if pointer not in seen:  # one message per place is enough to fix it
             seen.add(pointer)
             problems.append(InventoryProblem(pointer, error.message))
+    return problems
+
+
+def validate_inventory_document(
+    data: Any, *, changed_terms: Collection[int] | None = None
+) -> list[InventoryProblem]:
+    """Every problem in `data`, schema errors first; empty when the document is valid.
+
+    With `changed_terms` (indexes into "terms"), only those term entries and the
+    top level are checked against the schema: the rest were valid in the version
+    the edit started from. Cross-row rules always cover the whole document (they
+    are cheap dictionary lookups).
+    """
+    whole, one_term = _validators()
+    if changed_terms is None or not isinstance(data, dict):
+        problems = _schema_problems(whole, data)
+    else:
+        problems = _schema_problems(whole, {**data, "terms": []})
+        terms = data.get("terms")
+        if isinstance(terms, list):
+            for index in sorted(changed_terms):
+                problems += _schema_problems(one_term, terms[index], ("terms", index))
     if problems:
         return problems
+    terms = data["terms"]
+    keys = [fold(s) for term in terms for s in (term["term"], *term.get("aliases", ()))]
+    ids = [sense["id"] for term in terms for sense in term["senses"]]
+    if len(set(keys)) == len(keys) and len(set(ids)) == len(ids):
+        return problems  # the common case, without building a pointer per row
     surfaces: dict[str, str] = {}
     sense_ids: dict[str, str] = {}
-    for t, term in enumerate(data["terms"]):
+    for t, term in enumerate(terms):
         for a, surface in enumerate([term["term"], *term.get("aliases", [])]):
             where = f"/terms/{t}/term" if a == 0 else f"/terms/{t}/aliases/{a - 1}"
             key = fold(surface)
@@ -113,9 +179,14 @@ def validate_inventory_document(data: Any) -> list[InventoryProblem]:
     return problems
 
 
-def parse_inventory_document(data: Any, *, version: int | None = None) -> InventorySpec:
-    """A valid document as an InventorySpec; raises InventoryInvalid listing every problem."""
-    problems = validate_inventory_document(data)
+def parse_inventory_document(
+    data: Any, *, version: int | None = None, changed_terms: Collection[int] | None = None
+) -> InventorySpec:
+    """A valid document as an InventorySpec; raises InventoryInvalid listing every problem.
+
+    `changed_terms`: see `validate_inventory_document`.
+    """
+    problems = validate_inventory_document(data, changed_terms=changed_terms)
     if problems:
         raise InventoryInvalid(problems)
     settings = data.get("settings", {})
@@ -132,24 +203,26 @@ def parse_inventory_document(data: Any, *, version: int | None = None) -> Invent
             target_delta=settings.get("target_delta", defaults.target_delta),
             missing_sense_rate=settings.get("missing_sense_rate", defaults.missing_sense_rate),
         ),
-        terms=tuple(
-            TermSpec(
-                term=" ".join(term["term"].split()),
-                aliases=tuple(" ".join(alias.split()) for alias in term.get("aliases", [])),
-                case=term.get("case", "insensitive"),
-                pos=term.get("pos"),
-                inflect=term.get("inflect", True),
-                senses=tuple(
-                    SenseSpec(
-                        sense_id=sense["id"],
-                        gloss=sense["gloss"].strip(),
-                        examples=tuple(sense.get("examples", [])),
-                        tags=tuple(sense.get("tags", [])),
-                    )
-                    for sense in term["senses"]
-                ),
+        terms=tuple(parse_term(term) for term in data["terms"]),
+    )
+
+
+def parse_term(term: dict[str, Any]) -> TermSpec:
+    """One schema-valid term entry as a TermSpec (surfaces normalised, glosses stripped)."""
+    return TermSpec(
+        term=" ".join(term["term"].split()),
+        aliases=tuple(" ".join(alias.split()) for alias in term.get("aliases", [])),
+        case=term.get("case", "insensitive"),
+        pos=term.get("pos"),
+        inflect=term.get("inflect", True),
+        senses=tuple(
+            SenseSpec(
+                sense_id=sense["id"],
+                gloss=sense["gloss"].strip(),
+                examples=tuple(sense.get("examples", [])),
+                tags=tuple(sense.get("tags", [])),
             )
-            for term in data["terms"]
+            for sense in term["senses"]
         ),
     )
 
@@ -169,24 +242,26 @@ def spec_to_document(spec: InventorySpec) -> dict[str, Any]:
             "target_delta": spec.settings.target_delta,
             "missing_sense_rate": spec.settings.missing_sense_rate,
         },
-        "terms": [
+        "terms": [term_to_document(term) for term in spec.terms],
+    }
+
+
+def term_to_document(term: TermSpec) -> dict[str, Any]:
+    """The canonical entry for one term (see `spec_to_document`)."""
+    return {
+        "term": term.term,
+        "aliases": list(term.aliases),
+        "case": term.case,
+        "pos": term.pos,
+        "inflect": term.inflect,
+        "senses": [
             {
-                "term": term.term,
-                "aliases": list(term.aliases),
-                "case": term.case,
-                "pos": term.pos,
-                "inflect": term.inflect,
-                "senses": [
-                    {
-                        "id": sense.sense_id,
-                        "gloss": sense.gloss,
-                        "examples": list(sense.examples),
-                        "tags": list(sense.tags),
-                    }
-                    for sense in term.senses
-                ],
+                "id": sense.sense_id,
+                "gloss": sense.gloss,
+                "examples": list(sense.examples),
+                "tags": list(sense.tags),
             }
-            for term in spec.terms
+            for sense in term.senses
         ],
     }
 

@@ -25,6 +25,9 @@ from service.config import Settings
 MIGRATIONS_DIR = Path(__file__).resolve().parent.parent.parent / "migrations"
 
 
+READ_ONLY_OPTION = "whichsense_read_only"
+
+
 class DatabaseNotMigrated(RuntimeError):
     """The schema is missing or older than this code; `whichsense db upgrade` fixes it."""
 
@@ -43,6 +46,11 @@ def _configure_sqlite(engine: Engine) -> None:
 
     @event.listens_for(engine, "begin")
     def _on_begin(conn) -> None:  # type: ignore[no-untyped-def]
+        if conn.get_execution_options().get(READ_ONLY_OPTION):
+            # Deferred: under WAL a reader sees the last commit and never waits for
+            # the writer, so status reads stay fast while batches are written.
+            conn.exec_driver_sql("BEGIN")
+            return
         # IMMEDIATE takes the write lock up front: one claimer at a time, no
         # deadlock-prone lock upgrades between the API and the worker.
         conn.exec_driver_sql("BEGIN IMMEDIATE")
@@ -69,6 +77,12 @@ def engine_for(url: str) -> Engine:
 
 def session_factory(url: str) -> sessionmaker[Session]:
     return sessionmaker(engine_for(url), expire_on_commit=False)
+
+
+def read_session_factory(url: str) -> sessionmaker[Session]:
+    """Sessions for requests that only read (on SQLite they skip the write lock)."""
+    engine = engine_for(url).execution_options(**{READ_ONLY_OPTION: True})
+    return sessionmaker(engine, expire_on_commit=False)
 
 
 @contextmanager

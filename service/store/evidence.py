@@ -7,6 +7,7 @@ from collections.abc import Iterable
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from service.engine import OccurrenceFinder
 from service.engine.types import Evidence
 from service.store.errors import Conflict
 from service.store.inventories import get_inventory, load_inventory_spec
@@ -15,27 +16,56 @@ from service.store.models import EvidenceRecord
 INSERT_BATCH = 2_000
 
 
+def span_problem(finder: OccurrenceFinder, item: Evidence) -> str | None:
+    """Why `item`'s span is not an occurrence of its term, or None when it is.
+
+    The span must be exactly a match the tagging finder makes for that term (the
+    term, an alias or an inflected form), so a mislabeled span can never shape a
+    sense's prototype.
+    """
+    if "\x00" in item.text:
+        return "the text contains a NUL character (U+0000)"
+    if not 0 <= item.start < item.end <= len(item.text):
+        return f"offsets {item.start}..{item.end} fall outside the text"
+    if (item.start, item.end, item.term) not in finder.find_in_text(item.text, [item.term]):
+        surface = item.text[item.start : item.end]
+        return (
+            f"text[{item.start}:{item.end}] is {surface[:80]!r}, which is not an occurrence "
+            f"of '{item.term}' (the term, an alias or an inflected form)"
+        )
+    return None
+
+
 def add_evidence(
-    session: Session, team_id: int, inventory_name: str, evidences: Iterable[Evidence]
+    session: Session,
+    team_id: int,
+    inventory_name: str,
+    evidences: Iterable[Evidence],
+    *,
+    finder: OccurrenceFinder | None = None,
 ) -> int:
     """Store evidence for known terms and senses; returns how many rows were added.
 
-    Evidence naming a sense the inventory lacks is refused as a whole (Conflict)
-    so an import never half-lands.
+    Evidence naming a sense the inventory lacks, or whose span `finder` (default:
+    one built for the current version) does not find as an occurrence of its
+    term, is refused as a whole (Conflict naming the item) so an import never
+    half-lands.
     """
     inventory = get_inventory(session, team_id, inventory_name)
     spec = load_inventory_spec(session, team_id, inventory_name)
+    finder = finder if finder is not None else OccurrenceFinder(spec)
     known = {(term.term, sense.sense_id) for term in spec.terms for sense in term.senses}
     added = 0
     pending: list[EvidenceRecord] = []
-    for item in evidences:
+    for number, item in enumerate(evidences, start=1):
         if (item.term, item.sense_id) not in known:
             raise Conflict(
-                f"evidence for term '{item.term}' names sense '{item.sense_id}', "
+                f"evidence item {number}: term '{item.term}' names sense '{item.sense_id}', "
                 f"which inventory '{inventory_name}' does not have"
             )
-        if not 0 <= item.start < item.end <= len(item.text):
-            raise Conflict(f"evidence offsets {item.start}..{item.end} fall outside its text")
+        problem = span_problem(finder, item)
+        if problem is not None:
+            raise Conflict(f"evidence item {number}: {problem}; nothing was stored")
         pending.append(
             EvidenceRecord(
                 inventory_id=inventory.id,

@@ -1,25 +1,38 @@
-"""Inventory repository: every edit is a whole-document change with a new version.
+"""Inventory repository: every edit yields a new version with an immutable snapshot.
 
-An edit is applied to the current document, the result is validated as a
-whole (so no edit can leave an inventory the engine would reject), the rows are
-rewritten and an immutable snapshot of the new version is stored. Old versions
-stay readable for the batches pinned to them.
+An edit is applied to the current document. An edit that says which terms it
+touched is checked incrementally: the schema for those term entries and the top
+level, the cross-row rules (unique surfaces and sense ids) for the whole
+document, and only the touched terms' rows are rewritten. Anything else (a
+whole-document replacement) is validated and written as a whole. Either way no
+edit can leave an inventory the engine would reject, and old versions stay
+readable for the batches pinned to them.
+
+Edits take the inventory's row lock; on PostgreSQL they run under
+`lock_timeout` and `statement_timeout` so a stuck edit cannot hold the lock and
+queue every other request behind it.
 """
 
 from __future__ import annotations
 
 import copy
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from typing import Any
 
-from sqlalchemy import delete, select
+from sqlalchemy import delete, func, select, text
 from sqlalchemy.orm import Session
 
-from service.engine.types import InventorySettings, InventorySpec
+from service.config import Settings
+from service.engine.types import InventorySettings, InventorySpec, TermSpec
 from service.inventory.document import (
+    InventoryInvalid,
+    check_inventory_size,
     fold,
     parse_inventory_document,
+    parse_term,
     spec_to_document,
+    term_to_document,
+    validate_inventory_document,
 )
 from service.store.audit import record_audit
 from service.store.errors import Conflict, NotFound
@@ -33,6 +46,9 @@ from service.store.models import (
 )
 
 Document = dict[str, Any]
+# What an edit returns: the folded surfaces of the terms it touched (added, changed or
+# removed), or None when it may have changed anything (then the whole document is redone).
+Change = Callable[[Document], Iterable[str] | None]
 
 
 def list_inventories(session: Session, team_id: int) -> list[Inventory]:
@@ -65,17 +81,10 @@ def _with_default_settings(document: Document, defaults: InventorySettings) -> D
     return document
 
 
-def _write_rows(session: Session, inventory: Inventory, spec: InventorySpec) -> None:
-    """Replace the inventory's rows with those of `spec` and store its snapshot."""
-    session.execute(delete(Term).where(Term.inventory_id == inventory.id))
-    session.flush()
-    inventory.description = spec.description
-    inventory.review_threshold = spec.settings.review_threshold
-    inventory.abstain_threshold = spec.settings.abstain_threshold
-    inventory.temperature = spec.settings.temperature
-    inventory.updated_at = utcnow()
-    for t, term in enumerate(spec.terms):
-        term_row = Term(
+def _add_term_rows(session: Session, inventory: Inventory, term: TermSpec, position: int) -> None:
+    """Queue the rows of one term (the caller flushes: inserts go out in batches)."""
+    session.add(
+        Term(
             inventory_id=inventory.id,
             term=term.term,
             folded=fold(term.term),
@@ -83,26 +92,43 @@ def _write_rows(session: Session, inventory: Inventory, spec: InventorySpec) -> 
             case_rule=term.case,
             pos=term.pos,
             inflect=term.inflect,
-            position=t,
+            position=position,
+            senses=[
+                Sense(
+                    inventory_id=inventory.id,
+                    sense_key=sense.sense_id,
+                    gloss=sense.gloss,
+                    tags=list(sense.tags),
+                    position=s,
+                    examples=[
+                        SenseExample(text=example, position=e)
+                        for e, example in enumerate(sense.examples)
+                    ],
+                )
+                for s, sense in enumerate(term.senses)
+            ],
         )
-        session.add(term_row)
-        session.flush()
-        for s, sense in enumerate(term.senses):
-            sense_row = Sense(
-                inventory_id=inventory.id,
-                term_id=term_row.id,
-                sense_key=sense.sense_id,
-                gloss=sense.gloss,
-                tags=list(sense.tags),
-                position=s,
-            )
-            sense_row.examples = [
-                SenseExample(text=text, position=e) for e, text in enumerate(sense.examples)
-            ]
-            session.add(sense_row)
+    )
+
+
+def _store_version(
+    session: Session, inventory: Inventory, spec: InventorySpec, document: Document | None = None
+) -> None:
+    """Copy the top-level settings to the inventory row and store the new snapshot.
+
+    `document`: the canonical document when the caller has it (an incremental
+    edit), else it is written from `spec`.
+    """
+    inventory.description = spec.description
+    inventory.review_threshold = spec.settings.review_threshold
+    inventory.abstain_threshold = spec.settings.abstain_threshold
+    inventory.temperature = spec.settings.temperature
+    inventory.updated_at = utcnow()
     session.add(
         InventoryVersion(
-            inventory_id=inventory.id, version=spec.version, document=spec_to_document(spec)
+            inventory_id=inventory.id,
+            version=spec.version,
+            document=document if document is not None else spec_to_document(spec),
         )
     )
     session.flush()
@@ -113,6 +139,60 @@ def _exists(session: Session, team_id: int, name: str) -> bool:
     return session.scalars(query).first() is not None
 
 
+def _write_rows(session: Session, inventory: Inventory, spec: InventorySpec) -> None:
+    """Replace the inventory's rows with those of `spec` and store its snapshot."""
+    session.execute(delete(Term).where(Term.inventory_id == inventory.id))
+    session.flush()
+    for t, term in enumerate(spec.terms):
+        _add_term_rows(session, inventory, term, t)
+    _store_version(session, inventory, spec)
+
+
+def _rewrite_terms(
+    session: Session, inventory: Inventory, terms: list[TermSpec], keys: set[str]
+) -> None:
+    """Rewrite only the rows of the terms folded to `keys` (gone ones are deleted)."""
+    old = {
+        folded: position
+        for folded, position in session.execute(
+            select(Term.folded, Term.position).where(
+                Term.inventory_id == inventory.id, Term.folded.in_(keys)
+            )
+        )
+    }
+    session.execute(delete(Term).where(Term.inventory_id == inventory.id, Term.folded.in_(keys)))
+    session.flush()
+    following = session.scalar(
+        select(func.coalesce(func.max(Term.position), -1)).where(Term.inventory_id == inventory.id)
+    )
+    for term in terms:
+        key = fold(term.term)
+        if key not in old:
+            following += 1
+        _add_term_rows(session, inventory, term, old.get(key, following))
+
+
+def _bound_waits(session: Session, settings: Settings | None) -> None:
+    """On PostgreSQL, cap this transaction's lock wait and statement time."""
+    if settings is None or session.get_bind().dialect.name != "postgresql":
+        return  # SQLite: one writer, edits are short; busy_timeout bounds the wait
+    lock_ms = max(1, int(settings.lock_timeout_seconds * 1000))
+    statement_ms = max(1, int(settings.statement_timeout_seconds * 1000))
+    session.execute(text(f"SET LOCAL lock_timeout = {lock_ms}"))
+    session.execute(text(f"SET LOCAL statement_timeout = {statement_ms}"))
+
+
+def _check_size(document: Document, settings: Settings | None) -> None:
+    """The deployment's caps on terms and senses (callers without settings: no cap)."""
+    if settings is None:
+        return
+    check_inventory_size(
+        document,
+        max_terms=settings.max_terms_per_inventory,
+        max_senses=settings.max_senses_per_inventory,
+    )
+
+
 def create_inventory(
     session: Session,
     team_id: int,
@@ -120,11 +200,14 @@ def create_inventory(
     *,
     defaults: InventorySettings,
     key_id: str | None = None,
+    settings: Settings | None = None,
 ) -> Inventory:
     """Store a new inventory at version 1; Conflict if the team has one of that name.
 
-    `defaults` fills the thresholds the document leaves out (the deployment's settings).
+    `defaults` fills the thresholds the document leaves out (the deployment's settings);
+    `settings` bound its size.
     """
+    _check_size(document, settings)
     spec = parse_inventory_document(_with_default_settings(document, defaults), version=1)
     if _exists(session, team_id, spec.name):
         raise Conflict(f"inventory '{spec.name}' already exists")
@@ -155,32 +238,65 @@ def version_document(session: Session, inventory: Inventory, version: int) -> Do
     ).one_or_none()
     if document is None:
         raise NotFound(f"inventory '{inventory.name}' has no version {version}")
-    return copy.deepcopy(document)
+    return document  # a column read decodes a fresh object: the caller may change it
 
 
 def edit_inventory(
     session: Session,
     team_id: int,
     name: str,
-    change: Callable[[Document], None],
+    change: Change,
     *,
     key_id: str | None = None,
+    settings: Settings | None = None,
 ) -> Inventory:
-    """Apply `change` to the current document in place; validate; store a new version."""
+    """Apply `change` to the current document in place; validate; store a new version.
+
+    When `change` returns the folded surfaces it touched, only those terms are
+    validated against the schema and have their rows rewritten. `settings` bound the
+    inventory's size and, on PostgreSQL, the edit's lock wait and statement time.
+    """
+    _bound_waits(session, settings)
     inventory = get_inventory(session, team_id, name, for_update=True)
     document = current_document(session, inventory)
-    change(document)
+    touched = change(document)
     if document.get("name") != name:
         raise Conflict("an inventory cannot be renamed by an edit")
-    spec = parse_inventory_document(document, version=inventory.version + 1)
-    inventory.version = spec.version
-    _write_rows(session, inventory, spec)
-    record_audit(session, team_id, key_id, "inventory.edit", name, {"version": spec.version})
+    _check_size(document, settings)
+    version = inventory.version + 1
+    if touched is None:
+        spec = parse_inventory_document(document, version=version)
+        inventory.version = spec.version
+        _write_rows(session, inventory, spec)
+        record_audit(session, team_id, key_id, "inventory.edit", name, {"version": version})
+        return inventory
+    # Incremental: the other terms are canonical already (they come from the snapshot).
+    keys = set(touched)
+    terms = document["terms"]
+    changed = [i for i, entry in enumerate(terms) if fold(entry["term"]) in keys]
+    problems = validate_inventory_document(document, changed_terms=changed)
+    if problems:
+        raise InventoryInvalid(problems)
+    header = parse_inventory_document({**document, "terms": []}, version=version)
+    changed_specs = [parse_term(terms[i]) for i in changed]
+    for i, spec in zip(changed, changed_specs, strict=True):
+        terms[i] = term_to_document(spec)
+    snapshot = {**spec_to_document(header), "terms": terms}
+    inventory.version = version
+    _rewrite_terms(session, inventory, changed_specs, keys)
+    _store_version(session, inventory, header, snapshot)
+    record_audit(session, team_id, key_id, "inventory.edit", name, {"version": version})
     return inventory
 
 
 def replace_inventory(
-    session: Session, team_id: int, name: str, document: Document, *, key_id: str | None = None
+    session: Session,
+    team_id: int,
+    name: str,
+    document: Document,
+    *,
+    key_id: str | None = None,
+    settings: Settings | None = None,
 ) -> Inventory:
     """Replace the whole content of `name` with `document`, as a new version."""
 
@@ -190,7 +306,7 @@ def replace_inventory(
         current.update(copy.deepcopy(document))
         current.setdefault("settings", kept_settings)
 
-    return edit_inventory(session, team_id, name, change, key_id=key_id)
+    return edit_inventory(session, team_id, name, change, key_id=key_id, settings=settings)
 
 
 def import_inventory_document(
@@ -200,12 +316,15 @@ def import_inventory_document(
     *,
     defaults: InventorySettings,
     key_id: str | None = None,
+    settings: Settings | None = None,
 ) -> Inventory:
     """Create the inventory, or replace its content as a new version if it exists."""
     name = data.get("name") if isinstance(data, dict) else None
     if isinstance(name, str) and _exists(session, team_id, name):
-        return replace_inventory(session, team_id, name, data, key_id=key_id)
-    return create_inventory(session, team_id, data, defaults=defaults, key_id=key_id)
+        return replace_inventory(session, team_id, name, data, key_id=key_id, settings=settings)
+    return create_inventory(
+        session, team_id, data, defaults=defaults, key_id=key_id, settings=settings
+    )
 
 
 def delete_inventory(

@@ -85,6 +85,16 @@ def list_keys(session: Session, team_id: int | None = None) -> list[ApiKey]:
     return list(session.scalars(query.order_by(ApiKey.created_at, ApiKey.id)))
 
 
+def rotate_signing_secret(session: Session, key_id: str) -> str:
+    """Give a live key a new webhook signing secret; the old one stops signing at once."""
+    key = session.scalars(select(ApiKey).where(ApiKey.key_id == key_id)).one_or_none()
+    if key is None or key.revoked_at is not None:
+        raise NotFound(f"API key '{key_id}' does not exist or is revoked")
+    key.signing_secret = secrets.token_hex(32)
+    session.flush()
+    return key.signing_secret
+
+
 def revoke_key(session: Session, key_id: str, *, team_id: int | None = None) -> ApiKey:
     """Revoke a key (of `team_id` only, when given); audited in the key's team."""
     query = select(ApiKey).where(ApiKey.key_id == key_id)

@@ -49,7 +49,7 @@ def test_batch_pins_inventory_version_and_evidence_watermark(pipeline):
             session,
             pipeline.team_id,
             "tiny-shop",
-            [Evidence(0, "bass", "bass.fish", "We caught a bass.", 11, 15, "import")],
+            [Evidence(0, "bass", "bass.fish", "We caught a bass.", 12, 16, "import")],
         )
     first = pipeline.submit(documents(1))
     edited = pipeline.client.patch(
@@ -160,7 +160,7 @@ def test_bad_ndjson_names_its_line_and_stores_nothing(pipeline, body, status, li
 
 def test_bad_json_bodies(pipeline):
     post = pipeline.client.post
-    headers = pipeline.ingest
+    headers = {**pipeline.ingest, "Content-Type": "application/json"}
     assert_problem(
         post("/v1/batches", content=b'{"inventory": "tiny-shop", "documents": [', headers=headers),
         400,

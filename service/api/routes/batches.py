@@ -214,7 +214,7 @@ def list_results(
         def page(s: Session, position: Any) -> tuple[list[Any], Any]:
             return batch_results.results_page(s, batch, chosen, after=position, limit=STREAM_PAGE)
 
-        return stream_pages(request.app.state.sessions, page, after)
+        return stream_pages(request.app.state.read_sessions, page, after)
     rows, following = batch_results.results_page(
         session,
         batch,
@@ -265,7 +265,7 @@ def list_summaries(
     if wants_ndjson(request):
         session.expunge(batch)  # keep its loaded values: the pages read it in other sessions
         session.rollback()
-        return stream_pages(request.app.state.sessions, page, start)
+        return stream_pages(request.app.state.read_sessions, page, start)
     rows, following = page(session, start, limit)
     return JSONResponse(
         {

@@ -5,19 +5,23 @@ from __future__ import annotations
 from typing import Any
 
 from fastapi import APIRouter, Depends
-from pydantic import BaseModel, Field
+from pydantic import Field
 from sqlalchemy.orm import Session
 
-from service.api.deps import Caller, admin_key, any_key, get_session
+from service.api.deps import Caller, admin_key, any_key, get_session, get_settings_dep
 from service.api.problems import ProblemError
+from service.api.schemas import Strict
+from service.config import Settings
+from service.engine import OccurrenceFinder
 from service.engine.types import Evidence, InventorySpec
 from service.store import evidence as evidence_repo
 from service.store.inventories import get_inventory, load_inventory_spec
+from service.tagging.engines import shared_engines
 
 router = APIRouter(prefix="/v1", tags=["evidence"])
 
 
-class LabeledOccurrenceIn(BaseModel):
+class LabeledOccurrenceIn(Strict):
     """One labeled occurrence: `text[start:end]` is the term, `sense` its sense id."""
 
     text: str = Field(min_length=1, max_length=20_000)
@@ -27,7 +31,7 @@ class LabeledOccurrenceIn(BaseModel):
     sense: str = Field(min_length=1, max_length=200)
 
 
-class EvidenceIn(BaseModel):
+class EvidenceIn(Strict):
     occurrences: list[LabeledOccurrenceIn] = Field(min_length=1, max_length=10_000)
 
 
@@ -36,19 +40,19 @@ def add_evidence(
     name: str,
     body: EvidenceIn,
     session: Session = Depends(get_session),
+    settings: Settings = Depends(get_settings_dep),
     caller: Caller = Depends(admin_key),
 ) -> dict[str, int]:
     """Add labeled occurrences; all or nothing (one bad item refuses the whole body)."""
-    _check_against_inventory(load_inventory_spec(session, caller.team_id, name), body.occurrences)
-    added = evidence_repo.add_evidence(
-        session,
-        caller.team_id,
-        name,
-        (
-            Evidence(0, item.term, item.sense, item.text, item.start, item.end, "import")
-            for item in body.occurrences
-        ),
-    )
+    spec = load_inventory_spec(session, caller.team_id, name)
+    finder = shared_engines().finder(settings.database_url, spec)
+    items = [
+        Evidence(0, item.term, item.sense, item.text, item.start, item.end, "import")
+        for item in body.occurrences
+    ]
+    _check_against_inventory(spec, body.occurrences)
+    _check_spans(finder, items)
+    added = evidence_repo.add_evidence(session, caller.team_id, name, items, finder=finder)
     session.commit()
     return {"added": added}
 
@@ -82,6 +86,22 @@ def _check_against_inventory(spec: InventorySpec, items: list[LabeledOccurrenceI
     if errors:
         raise ProblemError(
             422, f"{len(errors)} labeled occurrence problem(s); nothing was stored", errors=errors
+        )
+
+
+def _check_spans(finder: OccurrenceFinder, items: list[Evidence]) -> None:
+    """422 naming every item whose span the tagging finder does not find as its term."""
+    errors = []
+    for index, item in enumerate(items):
+        problem = evidence_repo.span_problem(finder, item)
+        if problem is not None:
+            errors.append({"pointer": f"/occurrences/{index}", "index": index, "detail": problem})
+    if errors:
+        raise ProblemError(
+            422,
+            f"{len(errors)} labeled occurrence(s) do not mark their term; nothing was stored",
+            kind="span-not-an-occurrence",
+            errors=errors,
         )
 
 

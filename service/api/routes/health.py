@@ -24,7 +24,7 @@ def readyz(request: Request) -> JSONResponse:
     settings = request.app.state.settings
     checks: dict[str, str] = {}
     try:
-        with request.app.state.sessions() as session:
+        with request.app.state.read_sessions() as session:
             session.execute(text("SELECT 1"))
         require_migrated(settings.database_url)
         checks["database"] = "ok"

@@ -1,7 +1,9 @@
 """Inventories, their versions, terms, senses and examples.
 
-Every write goes through `edit_inventory`, so each one yields a new version
-and a whole-document validation; reads of old versions come from snapshots.
+Every write goes through `edit_inventory`, so each one yields a new version;
+edits of one term, sense or example say which term they touched, so only that
+term is validated and rewritten. They run off the event loop and are not
+committed when the client has gone. Reads of old versions come from snapshots.
 """
 
 from __future__ import annotations
@@ -10,10 +12,11 @@ from typing import Any
 
 from fastapi import APIRouter, Depends, Request, Response
 from fastapi.responses import JSONResponse
-from sqlalchemy import select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
+from starlette.concurrency import run_in_threadpool
 
-from service.api.bodies import decode_json_object, decode_utf8
+from service.api.bodies import decode_json_object, decode_utf8, media_type, refuse_nul
 from service.api.deps import Caller, admin_key, any_key, get_session, get_settings_dep
 from service.api.problems import ProblemError
 from service.api.schemas import (
@@ -27,11 +30,12 @@ from service.api.schemas import (
     TermPatch,
     VersionInfo,
 )
+from service.api.validators import ExampleIndex, OptionalVersion, VersionNumber
 from service.config import Settings
 from service.inventory.csv_format import read_inventory_csv, write_inventory_csv
-from service.inventory.document import inventory_schema
+from service.inventory.document import fold, inventory_schema
 from service.store import inventories as repo
-from service.store.models import Inventory, InventoryVersion
+from service.store.models import Inventory, InventoryVersion, Sense, Term
 
 router = APIRouter(prefix="/v1", tags=["inventories"])
 
@@ -47,29 +51,75 @@ _DOCUMENT_BODY = {
 
 
 def _summary(session: Session, inventory: Inventory) -> InventorySummary:
-    document = repo.current_document(session, inventory)
+    """Counts from the rows (no snapshot decoding: cheap on large inventories)."""
+    terms = session.scalar(
+        select(func.count()).select_from(Term).where(Term.inventory_id == inventory.id)
+    )
+    senses = session.scalar(
+        select(func.count()).select_from(Sense).where(Sense.inventory_id == inventory.id)
+    )
     return InventorySummary(
         name=inventory.name,
         version=inventory.version,
         description=inventory.description,
-        terms=len(document["terms"]),
-        senses=sum(len(term["senses"]) for term in document["terms"]),
-        settings=document["settings"],
+        terms=int(terms or 0),
+        senses=int(senses or 0),
+        settings={
+            "review_threshold": inventory.review_threshold,
+            "abstain_threshold": inventory.abstain_threshold,
+            "temperature": inventory.temperature,
+        },
         updated_at=inventory.updated_at,
     )
 
 
 async def _read_document(request: Request, name: str | None) -> dict[str, Any]:
     """The inventory document in the body: JSON, or CSV (then `name` comes from the URL)."""
-    media = request.headers.get("content-type", "application/json").split(";")[0].strip().lower()
+    media = media_type(request.headers.get("content-type"))
     raw = await request.body()
     if media == "text/csv":
         if not name:
             raise ProblemError(422, "a CSV inventory needs ?name=<inventory name>")
-        return read_inventory_csv(decode_utf8(raw), name)
+        text = decode_utf8(raw)
+        refuse_nul(text, "the CSV body")
+        return read_inventory_csv(text, name)
     if media != "application/json" and not media.endswith("+json"):
         raise ProblemError(415, f"send application/json or text/csv, not {media}")
     return decode_json_object(raw, "an inventory document (a JSON object)")
+
+
+async def _commit_unless_gone(request: Request, session: Session) -> None:
+    """Commit, unless the client went away while the edit ran: then nothing is kept."""
+    if await request.is_disconnected():
+        await run_in_threadpool(session.rollback)
+        # Nobody reads this answer; it keeps the rollback out of the error log.
+        raise ProblemError(400, "the client disconnected; nothing was stored")
+    await run_in_threadpool(session.commit)
+
+
+async def _edit(
+    request: Request,
+    session: Session,
+    settings: Settings,
+    caller: Caller,
+    name: str,
+    change: repo.Change,
+    *,
+    commit: bool = True,
+) -> Inventory:
+    """Run one edit off the event loop under the store's lock and time bounds."""
+    inventory = await run_in_threadpool(
+        repo.edit_inventory,
+        session,
+        caller.team_id,
+        name,
+        change,
+        key_id=caller.key_id,
+        settings=settings,
+    )
+    if commit:
+        await _commit_unless_gone(request, session)
+    return inventory
 
 
 def _export(document: dict[str, Any], request: Request) -> Response:
@@ -87,8 +137,9 @@ def get_inventory_schema() -> JSONResponse:
 def list_inventories(
     session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> list[InventorySummary]:
-    inventories = repo.list_inventories(session, caller.team_id)
-    return [_summary(session, inventory) for inventory in inventories]
+    return [
+        _summary(session, inventory) for inventory in repo.list_inventories(session, caller.team_id)
+    ]
 
 
 @router.post(
@@ -102,17 +153,22 @@ async def create_inventory(
     request: Request,
     response: Response,
     name: str | None = None,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
-    settings: Settings = Depends(get_settings_dep),
 ) -> InventorySummary:
     document = await _read_document(request, name)
-    inventory = repo.create_inventory(
-        session, caller.team_id, document, defaults=settings.inventory_defaults(),
+    inventory = await run_in_threadpool(
+        repo.create_inventory,
+        session,
+        caller.team_id,
+        document,
+        defaults=settings.inventory_defaults(),
         key_id=caller.key_id,
+        settings=settings,
     )
-    summary = _summary(session, inventory)
-    session.commit()
+    summary = await run_in_threadpool(_summary, session, inventory)
+    await _commit_unless_gone(request, session)
     response.headers["Location"] = f"/v1/inventories/{inventory.name}"
     return summary
 
@@ -125,21 +181,24 @@ def get_inventory(
 
 
 @router.patch("/inventories/{name}", response_model=InventorySummary)
-def patch_inventory(
+async def patch_inventory(
     name: str,
     patch: InventoryPatch,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> InventorySummary:
-    def change(document: dict[str, Any]) -> None:
+    def change(document: dict[str, Any]) -> set[str]:
         if patch.description is not None:
             document["description"] = patch.description
         if patch.settings is not None:
             document["settings"].update(patch.settings.model_dump(exclude_unset=True))
+        return set()  # no term touched
 
-    inventory = repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    summary = _summary(session, inventory)
-    session.commit()
+    inventory = await _edit(request, session, settings, caller, name, change, commit=False)
+    summary = await run_in_threadpool(_summary, session, inventory)
+    await _commit_unless_gone(request, session)
     return summary
 
 
@@ -159,7 +218,7 @@ def delete_inventory(
 def export_inventory(
     name: str,
     request: Request,
-    version: int | None = None,
+    version: OptionalVersion = None,
     session: Session = Depends(get_session),
     caller: Caller = Depends(any_key),
 ) -> Response:
@@ -177,6 +236,7 @@ def export_inventory(
 async def replace_inventory(
     name: str,
     request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> InventorySummary:
@@ -184,11 +244,17 @@ async def replace_inventory(
     if document.get("name", name) != name:
         raise ProblemError(409, f"the document names '{document.get('name')}', not '{name}'")
     document["name"] = name
-    inventory = repo.replace_inventory(
-        session, caller.team_id, name, document, key_id=caller.key_id
+    inventory = await run_in_threadpool(
+        repo.replace_inventory,
+        session,
+        caller.team_id,
+        name,
+        document,
+        key_id=caller.key_id,
+        settings=settings,
     )
-    summary = _summary(session, inventory)
-    session.commit()
+    summary = await run_in_threadpool(_summary, session, inventory)
+    await _commit_unless_gone(request, session)
     return summary
 
 
@@ -208,7 +274,7 @@ def list_versions(
 @router.get("/inventories/{name}/versions/{version}", summary="The document at one version")
 def get_version(
     name: str,
-    version: int,
+    version: VersionNumber,
     request: Request,
     session: Session = Depends(get_session),
     caller: Caller = Depends(any_key),
@@ -224,71 +290,74 @@ def get_version(
 def list_terms(
     name: str, session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> list[dict[str, Any]]:
-    inventory = repo.get_inventory(session, caller.team_id, name)
-    return repo.current_document(session, inventory)["terms"]
+    return repo.current_document(session, repo.get_inventory(session, caller.team_id, name))[
+        "terms"
+    ]
 
 
 @router.post("/inventories/{name}/terms", status_code=201)
-def add_term(
+async def add_term(
     name: str,
     term: TermIn,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> dict[str, Any]:
-    repo.edit_inventory(
-        session,
-        caller.team_id,
-        name,
-        lambda d: d["terms"].append(term.model_dump()),
-        key_id=caller.key_id,
-    )
-    session.commit()
+    def change(document: dict[str, Any]) -> set[str]:
+        document["terms"].append(term.model_dump())
+        return {fold(term.term)}
+
+    await _edit(request, session, settings, caller, name, change)
     return term.model_dump()
 
 
 @router.get("/inventories/{name}/terms/{term}")
 def get_term(
-    name: str,
-    term: str,
-    session: Session = Depends(get_session),
-    caller: Caller = Depends(any_key),
+    name: str, term: str, session: Session = Depends(get_session), caller: Caller = Depends(any_key)
 ) -> dict[str, Any]:
-    inventory = repo.get_inventory(session, caller.team_id, name)
-    return repo.find_term(repo.current_document(session, inventory), term)
+    return repo.find_term(
+        repo.current_document(session, repo.get_inventory(session, caller.team_id, name)), term
+    )
 
 
 @router.patch("/inventories/{name}/terms/{term}")
-def patch_term(
+async def patch_term(
     name: str,
     term: str,
     patch: TermPatch,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> dict[str, Any]:
     changed: dict[str, Any] = {}
 
-    def change(document: dict[str, Any]) -> None:
+    def change(document: dict[str, Any]) -> set[str]:
         entry = repo.find_term(document, term)
         entry.update(patch.model_dump(exclude_unset=True))
         changed.update(entry)
+        return {fold(entry["term"])}
 
-    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    session.commit()
+    await _edit(request, session, settings, caller, name, change)
     return changed
 
 
 @router.delete("/inventories/{name}/terms/{term}", status_code=204)
-def delete_term(
+async def delete_term(
     name: str,
     term: str,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> Response:
-    def change(document: dict[str, Any]) -> None:
-        document["terms"].remove(repo.find_term(document, term))
+    def change(document: dict[str, Any]) -> set[str]:
+        entry = repo.find_term(document, term)
+        document["terms"].remove(entry)
+        return {fold(entry["term"])}
 
-    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    session.commit()
+    await _edit(request, session, settings, caller, name, change)
     return Response(status_code=204)
 
 
@@ -296,18 +365,21 @@ def delete_term(
 
 
 @router.post("/inventories/{name}/terms/{term}/senses", status_code=201)
-def add_sense(
+async def add_sense(
     name: str,
     term: str,
     sense: SenseIn,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> dict[str, Any]:
-    def change(document: dict[str, Any]) -> None:
-        repo.find_term(document, term)["senses"].append(sense.model_dump())
+    def change(document: dict[str, Any]) -> set[str]:
+        entry = repo.find_term(document, term)
+        entry["senses"].append(sense.model_dump())
+        return {fold(entry["term"])}
 
-    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    session.commit()
+    await _edit(request, session, settings, caller, name, change)
     return sense.model_dump()
 
 
@@ -324,38 +396,42 @@ def get_sense(
 
 
 @router.patch("/inventories/{name}/senses/{sense_id}")
-def patch_sense(
+async def patch_sense(
     name: str,
     sense_id: str,
     patch: SensePatch,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> dict[str, Any]:
     changed: dict[str, Any] = {}
 
-    def change(document: dict[str, Any]) -> None:
-        _, sense = repo.find_sense(document, sense_id)
+    def change(document: dict[str, Any]) -> set[str]:
+        entry, sense = repo.find_sense(document, sense_id)
         sense.update(patch.model_dump(exclude_unset=True))
         changed.update(sense)
+        return {fold(entry["term"])}
 
-    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    session.commit()
+    await _edit(request, session, settings, caller, name, change)
     return changed
 
 
 @router.delete("/inventories/{name}/senses/{sense_id}", status_code=204)
-def delete_sense(
+async def delete_sense(
     name: str,
     sense_id: str,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> Response:
-    def change(document: dict[str, Any]) -> None:
+    def change(document: dict[str, Any]) -> set[str]:
         term, sense = repo.find_sense(document, sense_id)
         term["senses"].remove(sense)
+        return {fold(term["term"])}
 
-    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    session.commit()
+    await _edit(request, session, settings, caller, name, change)
     return Response(status_code=204)
 
 
@@ -377,22 +453,24 @@ def list_examples(
 @router.post(
     "/inventories/{name}/senses/{sense_id}/examples", status_code=201, response_model=ExampleOut
 )
-def add_example(
+async def add_example(
     name: str,
     sense_id: str,
     example: ExampleIn,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> ExampleOut:
     position: list[int] = []
 
-    def change(document: dict[str, Any]) -> None:
-        _, sense = repo.find_sense(document, sense_id)
+    def change(document: dict[str, Any]) -> set[str]:
+        term, sense = repo.find_sense(document, sense_id)
         sense.setdefault("examples", []).append(example.text)
         position.append(len(sense["examples"]) - 1)
+        return {fold(term["term"])}
 
-    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    session.commit()
+    await _edit(request, session, settings, caller, name, change)
     return ExampleOut(index=position[0], text=example.text)
 
 
@@ -402,37 +480,41 @@ def _example_at(sense: dict[str, Any], index: int) -> None:
 
 
 @router.put("/inventories/{name}/senses/{sense_id}/examples/{index}", response_model=ExampleOut)
-def replace_example(
+async def replace_example(
     name: str,
     sense_id: str,
-    index: int,
+    index: ExampleIndex,
     example: ExampleIn,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> ExampleOut:
-    def change(document: dict[str, Any]) -> None:
-        _, sense = repo.find_sense(document, sense_id)
+    def change(document: dict[str, Any]) -> set[str]:
+        term, sense = repo.find_sense(document, sense_id)
         _example_at(sense, index)
         sense["examples"][index] = example.text
+        return {fold(term["term"])}
 
-    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    session.commit()
+    await _edit(request, session, settings, caller, name, change)
     return ExampleOut(index=index, text=example.text)
 
 
 @router.delete("/inventories/{name}/senses/{sense_id}/examples/{index}", status_code=204)
-def delete_example(
+async def delete_example(
     name: str,
     sense_id: str,
-    index: int,
+    index: ExampleIndex,
+    request: Request,
+    settings: Settings = Depends(get_settings_dep),
     session: Session = Depends(get_session),
     caller: Caller = Depends(admin_key),
 ) -> Response:
-    def change(document: dict[str, Any]) -> None:
-        _, sense = repo.find_sense(document, sense_id)
+    def change(document: dict[str, Any]) -> set[str]:
+        term, sense = repo.find_sense(document, sense_id)
         _example_at(sense, index)
         del sense["examples"][index]
+        return {fold(term["term"])}
 
-    repo.edit_inventory(session, caller.team_id, name, change, key_id=caller.key_id)
-    session.commit()
+    await _edit(request, session, settings, caller, name, change)
     return Response(status_code=204)

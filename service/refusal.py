@@ -1,4 +1,4 @@
-"""What the batch wing refuses, without HTTP: the API maps each reason to a status."""
+"""What the service refuses, without HTTP: the API maps each reason to a status."""
 
 from __future__ import annotations
 
