@@ -243,7 +243,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     from service.store import inventories
     from service.store.database import session_scope, upgrade
     from service.store.keys import create_key
-    from service.store.teams import demo_team
+    from service.store.teams import ensure_team
 
     quiet_libraries(args.verbose)
     if args.fresh:
@@ -251,7 +251,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     upgrade(settings.database_url)
     document = json.loads((args.corpus / "inventory.json").read_text(encoding="utf-8"))
     with session_scope(settings) as session:
-        team = demo_team(session, DEMO_TEAM)
+        team = ensure_team(session, DEMO_TEAM)
         team_id = team.id
         inventory = inventories.import_inventory_document(
             session, team.id, document, defaults=settings.inventory_defaults()
@@ -340,10 +340,10 @@ def _show_isolation(settings: Settings, client: httpx.Client, batch_url: str) ->
     """A second team on the same service: its admin key cannot see the demo team's batch."""
     from service.store.database import session_scope
     from service.store.keys import create_key
-    from service.store.teams import demo_team
+    from service.store.teams import ensure_team
 
     with session_scope(settings) as session:
-        other = create_key(session, demo_team(session, OTHER_TEAM).id, "admin", "demo").token
+        other = create_key(session, ensure_team(session, OTHER_TEAM).id, "admin", "demo").token
     answer = client.get(batch_url, headers={"Authorization": f"Bearer {other}"})
     print(
         f"team '{OTHER_TEAM}' asks for this batch with its own admin key: HTTP "

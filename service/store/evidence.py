@@ -9,6 +9,7 @@ from sqlalchemy.orm import Session
 
 from service.engine import OccurrenceFinder
 from service.engine.types import Evidence
+from service.store.audit import record_audit
 from service.store.errors import Conflict
 from service.store.inventories import get_inventory, load_inventory_spec
 from service.store.models import EvidenceRecord
@@ -43,6 +44,7 @@ def add_evidence(
     evidences: Iterable[Evidence],
     *,
     finder: OccurrenceFinder | None = None,
+    key_id: str | None = None,
 ) -> int:
     """Store evidence for known terms and senses; returns how many rows were added.
 
@@ -84,7 +86,9 @@ def add_evidence(
             pending = []
     session.add_all(pending)
     session.flush()
-    return added + len(pending)
+    added += len(pending)
+    record_audit(session, team_id, key_id, "evidence.add", inventory_name, {"added": added})
+    return added
 
 
 def evidence_watermark(session: Session, inventory_id: int) -> int:

@@ -226,6 +226,13 @@ def test_audit_log_records_keys_and_inventory_edits_and_exports_json_lines(
     admin = bearer(api_keys["admin"])
     client.post("/v1/inventories", json=inventory_document, headers=admin)
     client.patch("/v1/inventories/tiny-shop", json={"description": "edited"}, headers=admin)
+    labeled = {"text": "We caught a bass.", "start": 12, "end": 16, "term": "bass"}
+    added = client.post(
+        "/v1/inventories/tiny-shop/evidence",
+        json={"occurrences": [{**labeled, "sense": "bass.fish"}]},
+        headers=admin,
+    )
+    assert added.status_code == 201, added.text
     client.delete("/v1/inventories/tiny-shop", headers=admin)
     with session_scope(settings) as session:
         extra = create_key(session, team_id, "ingest", "night")
@@ -242,12 +249,13 @@ def test_audit_log_records_keys_and_inventory_edits_and_exports_json_lines(
         if cursor is None:
             break
     actions = [e["action"] for e in pages]
-    # Newest first: the revocation, the new key, the inventory's delete, edit, create, and
-    # the three keys the fixture made.
+    # Newest first: the revocation, the new key, the inventory's delete, evidence, edit,
+    # create, and the three keys the fixture made.
     assert actions == [
         "key.revoke",
         "key.create",
         "inventory.delete",
+        "evidence.add",
         "inventory.edit",
         "inventory.create",
         "key.create",
@@ -255,8 +263,9 @@ def test_audit_log_records_keys_and_inventory_edits_and_exports_json_lines(
         "key.create",
     ]
     assert [e["id"] for e in pages] == sorted((e["id"] for e in pages), reverse=True)
-    assert pages[3]["detail"] == {"version": 2} and pages[3]["subject"] == "tiny-shop"
-    assert pages[3]["key_id"] == api_keys["admin"].split("_")[1]
+    assert pages[3]["detail"] == {"added": 1} and pages[3]["subject"] == "tiny-shop"
+    assert pages[4]["detail"] == {"version": 2} and pages[4]["subject"] == "tiny-shop"
+    assert pages[4]["key_id"] == api_keys["admin"].split("_")[1]
 
     lines = client.get("/v1/audit", headers={**admin, "Accept": "application/x-ndjson"})
     assert lines.headers["content-type"].startswith("application/x-ndjson")

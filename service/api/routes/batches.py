@@ -215,13 +215,8 @@ def list_results(
             return batch_results.results_page(s, batch, chosen, after=position, limit=STREAM_PAGE)
 
         return stream_pages(request.app.state.read_sessions, page, after)
-    rows, following = batch_results.results_page(
-        session,
-        batch,
-        chosen,
-        after=after,
-        limit=limit,  # type: ignore[arg-type]
-    )
+    start = (after[0], after[1]) if after is not None else None
+    rows, following = batch_results.results_page(session, batch, chosen, after=start, limit=limit)
     return JSONResponse(
         {
             "results": rows,

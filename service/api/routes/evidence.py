@@ -52,7 +52,9 @@ def add_evidence(
     ]
     _check_against_inventory(spec, body.occurrences)
     _check_spans(finder, items)
-    added = evidence_repo.add_evidence(session, caller.team_id, name, items, finder=finder)
+    added = evidence_repo.add_evidence(
+        session, caller.team_id, name, items, finder=finder, key_id=caller.key_id
+    )
     session.commit()
     return {"added": added}
 
