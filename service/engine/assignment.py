@@ -43,7 +43,7 @@ RECOMMENDED_ABSTAIN_THRESHOLD = InventorySettings().abstain_threshold
 
 
 def softmax(
-    similarities: np.ndarray, temperature: float, log_prior: np.ndarray | None = None
+    similarities: np.ndarray, temperature: float, log_prior: np.ndarray | float | None = None
 ) -> np.ndarray:
     """softmax(similarities / temperature + log_prior) along the last axis, computed stably."""
     if temperature <= 0:

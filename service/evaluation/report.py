@@ -18,7 +18,7 @@ import base64
 import io
 import json
 from collections import Counter, defaultdict
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
@@ -135,7 +135,7 @@ def term_summary(term: str, senses: Sequence[str], items: Sequence[Outcome]) -> 
 
 def summarise(
     outcomes: Sequence[Outcome],
-    senses_of_term: dict[str, Sequence[str]],
+    senses_of_term: Mapping[str, Sequence[str]],
     *,
     target_accuracy: float,
     n_bins: int = 10,

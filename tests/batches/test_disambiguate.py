@@ -14,6 +14,7 @@ from tests.problem_details import assert_problem
 RESULT_MEMBERS = {
     "document_id", "field", "occurrence_index", "start", "end", "surface", "term", "sense_id",
     "tags", "confidence", "margin", "status", "candidates", "rationale", "inventory_version",
+    "missing_sense_p",
 }  # fmt: skip
 
 
