@@ -22,6 +22,7 @@ from collections.abc import AsyncIterator
 from dataclasses import dataclass, field
 from typing import IO, Any
 
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 from starlette.requests import Request
@@ -35,7 +36,7 @@ from service.config import Settings
 from service.engine import OccurrenceFinder
 from service.store.batches import DocumentSink, start_batch
 from service.store.clock import database_now
-from service.store.models import Batch
+from service.store.models import Batch, Inventory
 from service.tagging.engines import shared_engines
 
 NDJSON_TYPES = ("application/x-ndjson", "application/jsonl", "application/json-lines")
@@ -266,7 +267,23 @@ class Intake:
 
     async def _start(self, header: Header) -> None:
         callback = await run_in_threadpool(check_callback, header.callback_url, self.settings)
+        await run_in_threadpool(self._warm_finder, header.inventory)
         await run_in_threadpool(self._start_batch, header, callback)
+
+    def _warm_finder(self, inventory: str) -> None:
+        """Build the current version's finder before the write transaction (a first build
+        loads WordNet: on SQLite every other writer would wait for it)."""
+        reads = self.request.app.state.read_sessions
+        with reads() as session:
+            row = session.execute(
+                select(Inventory.version).where(Inventory.name == inventory)
+            ).one_or_none()
+            if row is None:
+                return  # start_batch answers 404
+            engines = shared_engines()
+            spec = engines.spec(session, self.settings.database_url, inventory, row.version)
+            session.rollback()
+        engines.finder(self.settings.database_url, spec)
 
     def _start_batch(self, header: Header, callback: str | None) -> None:
         from sqlalchemy.exc import IntegrityError
