@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import threading
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 
 import pytest
 from fastapi.testclient import TestClient
@@ -25,6 +27,19 @@ def admin(client, api_keys, inventory_document):
         client.post("/v1/inventories", json=inventory_document, headers=headers).status_code == 201
     )
     return headers
+
+
+@contextmanager
+def _app_with(monkeypatch, env: dict[str, str], inventory_document, admin) -> Iterator[TestClient]:
+    """A client on an app whose settings have `env` (WHICHSENSE_ names) over the test database,
+    holding the small inventory."""
+    for name, value in env.items():
+        monkeypatch.setenv(f"WHICHSENSE_{name}", value)
+    get_settings.cache_clear()
+    with TestClient(create_app(get_settings()), raise_server_exceptions=False) as client:
+        created = client.post("/v1/inventories", json=inventory_document, headers=admin)
+        assert created.status_code == 201, created.text
+        yield client
 
 
 def _rows(settings) -> dict[str, tuple[int, list[str]]]:
@@ -108,15 +123,9 @@ def test_cross_row_rules_still_cover_the_whole_inventory(client, admin, settings
 def test_term_and_sense_caps_are_413_naming_the_setting(
     settings, api_keys, inventory_document, monkeypatch
 ):
-    monkeypatch.setenv("WHICHSENSE_MAX_TERMS_PER_INVENTORY", "2")
-    monkeypatch.setenv("WHICHSENSE_MAX_SENSES_PER_INVENTORY", "5")
-    get_settings.cache_clear()
     admin = bearer(api_keys["admin"])
-    with TestClient(create_app(get_settings()), raise_server_exceptions=False) as client:
-        assert (
-            client.post("/v1/inventories", json=inventory_document, headers=admin).status_code
-            == 201
-        )
+    env = {"MAX_TERMS_PER_INVENTORY": "2", "MAX_SENSES_PER_INVENTORY": "5"}
+    with _app_with(monkeypatch, env, inventory_document, admin) as client:
         term = {"term": "pitch", "senses": [{"id": "pitch.tar", "gloss": "tar"}]}
         problem = assert_problem(
             client.post("/v1/inventories/tiny-shop/terms", json=term, headers=admin), 413
@@ -151,14 +160,9 @@ def test_term_and_sense_caps_are_413_naming_the_setting(
 def test_an_edit_waiting_on_a_held_lock_gives_up_with_503(
     settings, api_keys, inventory_document, monkeypatch
 ):
-    monkeypatch.setenv("WHICHSENSE_LOCK_TIMEOUT_SECONDS", "0.5")
-    get_settings.cache_clear()
     admin = bearer(api_keys["admin"])
-    with TestClient(create_app(get_settings()), raise_server_exceptions=False) as client:
-        assert (
-            client.post("/v1/inventories", json=inventory_document, headers=admin).status_code
-            == 201
-        )
+    env = {"LOCK_TIMEOUT_SECONDS": "0.5"}
+    with _app_with(monkeypatch, env, inventory_document, admin) as client:
         held = threading.Event()
         release = threading.Event()
 
