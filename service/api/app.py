@@ -17,6 +17,7 @@ from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.openapi.utils import get_openapi
 from fastapi.responses import HTMLResponse
 from fastapi.staticfiles import StaticFiles
+from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
@@ -37,6 +38,7 @@ from service.api.routes import (
     review,
 )
 from service.config import Settings
+from service.engine.lexicon import open_wordnet
 from service.inventory.document import inventory_schema
 from service.store.database import read_session_factory, require_migrated, session_factory
 from service.web import pages
@@ -124,6 +126,9 @@ def create_app(settings: Settings, *, check_migrated: bool = True) -> FastAPI:
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
         if check_migrated:
             require_migrated(settings.database_url)
+        # Every submission counts occurrences with WordNet's morphology; opening it takes
+        # seconds, which the first requests after a start would otherwise all wait for.
+        await run_in_threadpool(open_wordnet)
         yield
 
     app = FastAPI(

@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 from typing import IO, Any, TypeVar
 
 import anyio.to_thread
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.batches.documents import DocumentInvalid, InputDocument, parse_document
@@ -37,7 +38,8 @@ from service.engine import OccurrenceFinder
 from service.json_text import loads
 from service.refusal import Refused
 from service.store.clock import database_now
-from service.store.models import Batch
+from service.store.database import read_session_factory
+from service.store.models import Batch, Inventory
 from service.tagging.engines import shared_engines
 
 NDJSON_TYPES = ("application/x-ndjson", "application/jsonl", "application/json-lines")
@@ -365,7 +367,25 @@ class Intake:
 
     async def _start(self, header: Header) -> None:
         callback = await run_in_threadpool(check_callback, header.callback_url, self.settings)
+        await run_in_threadpool(self._warm_finder, header.inventory)
         await run_in_threadpool(self._start_batch, header, callback)
+
+    def _warm_finder(self, inventory: str) -> None:
+        """Build the current version's finder before the write transaction (a first build
+        loads WordNet: on SQLite every other writer would wait for it)."""
+        reads = read_session_factory(self.settings.database_url)
+        with reads() as session:
+            row = session.execute(
+                select(Inventory.id, Inventory.version).where(
+                    Inventory.team_id == self.team_id, Inventory.name == inventory
+                )
+            ).one_or_none()
+            if row is None:
+                return  # start_batch answers 404
+            engines = shared_engines()
+            spec = engines.spec(session, self.settings.database_url, row.id, row.version)
+            session.rollback()
+        engines.finder(self.settings.database_url, spec)
 
     def _start_batch(self, header: Header, callback: str | None) -> None:
         from sqlalchemy.exc import IntegrityError

@@ -57,7 +57,7 @@ def test_sigterm_ends_the_server_within_its_grace_period(tmp_path: Path) -> None
         slow = socket.create_connection(("127.0.0.1", port))
         slow.sendall(
             b"POST /v1/batches HTTP/1.1\r\nHost: x\r\nContent-Type: application/json\r\n"
-            b"Content-Length: 100000\r\n\r\n{\"inventory\": \"x\", "
+            b'Content-Length: 100000\r\n\r\n{"inventory": "x", '
         )
         time.sleep(1)
         assert server.poll() is None

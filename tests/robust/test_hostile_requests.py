@@ -158,3 +158,11 @@ def test_a_body_without_content_type_is_415(client, admin, settings, inventory_d
     )
     assert_problem(response, 415)
     assert _stored(settings) == (0, 1)
+
+
+def test_405_names_every_method_the_path_serves(client, admin):
+    response = client.put("/v1/inventories/tiny-shop", headers=admin)
+    assert_problem(response, 405)
+    assert response.headers["allow"] == "DELETE, GET, PATCH"  # three routes share this path
+    response = client.delete("/v1/inventories", headers=admin)
+    assert response.headers["allow"] == "GET, POST"

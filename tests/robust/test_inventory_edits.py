@@ -4,12 +4,15 @@ from __future__ import annotations
 
 import threading
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 
 import pytest
 from fastapi.testclient import TestClient
 from sqlalchemy import select, text
 
 from service.api.app import create_app
+from service.config import Settings
 from service.inventory.document import parse_inventory_document, spec_to_document
 from service.store.database import engine_for, session_scope
 from service.store.models import Sense, Term
@@ -24,6 +27,20 @@ def admin(client, api_keys, inventory_document):
         client.post("/v1/inventories", json=inventory_document, headers=headers).status_code == 201
     )
     return headers
+
+
+@contextmanager
+def _app_with(
+    settings: Settings, changes: dict[str, object], inventory_document, admin
+) -> Iterator[TestClient]:
+    """A client on an app whose settings have `changes` over the test database, holding the
+    small inventory."""
+    with TestClient(
+        create_app(settings.model_copy(update=changes)), raise_server_exceptions=False
+    ) as client:
+        created = client.post("/v1/inventories", json=inventory_document, headers=admin)
+        assert created.status_code == 201, created.text
+        yield client
 
 
 def _rows(settings) -> dict[str, tuple[int, list[str]]]:
@@ -107,15 +124,9 @@ def test_cross_row_rules_still_cover_the_whole_inventory(client, admin, settings
 def test_term_and_sense_caps_are_413_naming_the_setting(
     settings, api_keys, inventory_document, monkeypatch
 ):
-    capped = settings.model_copy(
-        update={"max_terms_per_inventory": 2, "max_senses_per_inventory": 5}
-    )
     admin = bearer(api_keys["admin"])
-    with TestClient(create_app(capped), raise_server_exceptions=False) as client:
-        assert (
-            client.post("/v1/inventories", json=inventory_document, headers=admin).status_code
-            == 201
-        )
+    changes = {"max_terms_per_inventory": 2, "max_senses_per_inventory": 5}
+    with _app_with(settings, changes, inventory_document, admin) as client:
         term = {"term": "pitch", "senses": [{"id": "pitch.tar", "gloss": "tar"}]}
         problem = assert_problem(
             client.post("/v1/inventories/tiny-shop/terms", json=term, headers=admin), 413
@@ -150,13 +161,9 @@ def test_term_and_sense_caps_are_413_naming_the_setting(
 def test_an_edit_waiting_on_a_held_lock_gives_up_with_503(
     settings, api_keys, inventory_document, monkeypatch
 ):
-    bounded = settings.model_copy(update={"lock_timeout_seconds": 0.5})
     admin = bearer(api_keys["admin"])
-    with TestClient(create_app(bounded), raise_server_exceptions=False) as client:
-        assert (
-            client.post("/v1/inventories", json=inventory_document, headers=admin).status_code
-            == 201
-        )
+    changes = {"lock_timeout_seconds": 0.5}
+    with _app_with(settings, changes, inventory_document, admin) as client:
         held = threading.Event()
         release = threading.Event()
 
