@@ -4,11 +4,11 @@ revoked key: the status each must answer, on SQLite and PostgreSQL.
 The routes come from the app itself, so a route added without a line in RULES
 fails `test_every_route_has_exactly_one_rule`. Adding a route = one line in RULES.
 
-Per case the target objects (an inventory with a batch, and a finished batch whose one
-result waits in the review queue) are made afresh, so a DELETE or a decision in one case
-cannot change what the next case sees. A request by another
-team's key must answer 404 (or, on a collection, its own team's view) and must
-change no row.
+Per case the target objects (an inventory with a batch; for the review routes also a
+finished batch whose one result waits in the review queue) are made afresh, so a DELETE
+or a decision in one case cannot change what the next case sees. A request by another
+team's key must answer 404 (or, on a collection, its own team's view) and must change
+no row.
 """
 
 from __future__ import annotations
