@@ -286,7 +286,7 @@ def undo_last(session: Session, team_id: int, key_id: str) -> ReviewDecision:
     inventory = session.get(Inventory, item.inventory_id)
     if inventory is not None:
         # The engine cache only grows prototypes; with evidence taken away it must rebuild.
-        shared_engines().forget(inventory.name)
+        shared_engines().forget(inventory.id)
     return decision
 
 

@@ -123,8 +123,9 @@ class PinnedEngine:
             return list(self.disambiguator.tag(documents, rationale=rationale))
 
 
-# (database URL, inventory version, model id, document size limit)
-_Base = tuple[str, InventorySpec, str, int]
+# (database URL, inventory row id, inventory version, model id, document size limit): the
+# row id keeps apart two teams' content-equal inventories, whose evidence differs.
+_Base = tuple[str, int, InventorySpec, str, int]
 
 
 class EngineCache:
@@ -198,6 +199,7 @@ class EngineCache:
         encoder = self.encoder(settings)
         base: _Base = (
             settings.database_url,
+            pin.inventory_id,
             spec,
             encoder.model_id,
             settings.max_document_bytes,
@@ -248,11 +250,11 @@ class EngineCache:
                 evicted.retired = True
             return fresh
 
-    def forget(self, inventory: str) -> None:
-        """Drop every engine of `inventory`: evidence was taken away (a review undone), and
-        prototypes only grow, so the next request must build afresh."""
+    def forget(self, inventory_id: int) -> None:
+        """Drop every engine of inventory row `inventory_id`: evidence was taken away (a
+        review undone), and prototypes only grow, so the next request must build afresh."""
         with self._lock:
-            for key in [key for key in self._engines if key[0][1].name == inventory]:
+            for key in [key for key in self._engines if key[0][1] == inventory_id]:
                 self._engines.pop(key).retired = True
 
 

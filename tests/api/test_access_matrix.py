@@ -4,10 +4,11 @@ revoked key: the status each must answer, on SQLite and PostgreSQL.
 The routes come from the app itself, so a route added without a line in RULES
 fails `test_every_route_has_exactly_one_rule`. Adding a route = one line in RULES.
 
-Per case the target objects (an inventory with a batch) are made afresh, so a
-DELETE in one case cannot change what the next case sees. A request by another
-team's key must answer 404 (or, on a collection, its own team's view) and must
-change no row.
+Per case the target objects (an inventory with a batch; for the review routes also a
+finished batch whose one result waits in the review queue) are made afresh, so a DELETE
+or a decision in one case cannot change what the next case sees. A request by another
+team's key must answer 404 (or, on a collection, its own team's view) and must change
+no row.
 """
 
 from __future__ import annotations
@@ -23,29 +24,36 @@ from sqlalchemy import func, select
 
 from service.batches.documents import parse_document
 from service.batches.repository import DocumentSink, start_batch
+from service.review.decisions import record_decision
+from service.review.queue import get_item, sync_queue
 from service.store.clock import database_now
 from service.store.database import session_scope
 from service.store.inventories import create_inventory
 from service.store.keys import create_key, revoke_key
-from service.store.models import Base
+from service.store.models import Base, Batch, BatchResult, ReviewItem
 from service.store.teams import create_team
 from tests.conftest import SMALL_INVENTORY, bearer
 
 OWN = "own"  # on a collection another team's key sees its own team's view: the ok status
 
 Body = Callable[["World"], Any]
+Given = Callable[[Any, "World", str], None]
 
 
 @dataclass(frozen=True)
 class Rule:
     """Who may call a route: `scope` None = anyone (no key needed); "any" = any live key.
     `ok`: the status for an allowed caller of the owning team; `cross`: for an allowed
-    caller of another team (404, or OWN on collections); `body`: a valid JSON body."""
+    caller of another team (404, or OWN on collections); `body`: a valid JSON body;
+    `given(settings, world, key_id)`: state the route acts on that is a key's own rather
+    than the world's (made with the calling key, or for another team's caller with team A's
+    reviewer key, so that caller finds team A's state and must not touch it)."""
 
     scope: str | None
     ok: int | tuple[int, ...]
     cross: int | str = 404
     body: Body | None = None
+    given: Given | None = None
 
 
 def _inventory(name: str) -> dict[str, Any]:
@@ -53,6 +61,14 @@ def _inventory(name: str) -> dict[str, Any]:
 
 
 _DOC = {"id": "x1", "text": "The bass line was loud."}
+
+
+def _decided(settings: Any, world: World, key_id: str) -> None:
+    """`key_id` has decided the world's review item (what undo takes back)."""
+    with session_scope(settings) as session:
+        item = get_item(session, world.team_id, world.item_id)
+        record_decision(session, item, key_id, "bass.fish")
+
 
 # (method, path) -> Rule. One line per route.
 RULES: dict[tuple[str, str], Rule] = {
@@ -94,6 +110,18 @@ RULES: dict[tuple[str, str], Rule] = {
     ("GET", "/v1/batches/{batch_id}/failures"): Rule("any", 200),
     ("POST", "/v1/disambiguate"): Rule("ingest", 200, body=lambda w: {"inventory": w.name, "documents": [_DOC], "options": {"rationale": False}}),  # noqa: E501
     ("GET", "/v1/audit"): Rule("admin", 200, OWN),
+    # SMALL_INVENTORY has 4 labels, under the 30 a stored calibration needs: a found
+    # inventory answers 409 (refused, nothing stored); another team's, 404.
+    ("POST", "/v1/inventories/{name}/calibrate"): Rule("admin", 409),
+    ("GET", "/v1/inventories/{name}/quality"): Rule("any", 200),
+    ("POST", "/v1/review/claims"): Rule("review", 200, OWN, lambda w: {"count": 50}),
+    ("GET", "/v1/review/items/{item_id}"): Rule("review", 200),
+    ("DELETE", "/v1/review/items/{item_id}/claim"): Rule("review", 204),
+    ("POST", "/v1/review/items/{item_id}/decision"): Rule("review", 201, body=lambda w: {"sense_id": "bass.music"}),  # noqa: E501
+    ("POST", "/v1/review/undo"): Rule("review", 200, given=_decided),
+    ("GET", "/v1/review/decisions"): Rule("review", 200, OWN, given=_decided),
+    ("GET", "/v1/review/settings/{inventory}"): Rule("review", 200),
+    ("PUT", "/v1/review/settings/{inventory}"): Rule("admin", 200, body=lambda w: {"auto_resolve": False}),  # noqa: E501
 }
 
 SCOPES = ("ingest", "review", "admin")
@@ -126,12 +154,22 @@ def rule_problems(openapi: dict[str, Any]) -> list[str]:
 class World:
     """Objects of one team a case aims at (made fresh per case)."""
 
+    team_id: int
     name: str
     batch_id: str
+    review_batch_id: str | None = None
+    item_id: int | None = None
+
+    def secrets(self) -> list[str]:
+        """What of this world another team's collection view must not show."""
+        shown = [self.name + '"', self.batch_id]
+        return shown + ([self.review_batch_id] if self.review_batch_id else [])
 
     def params(self) -> dict[str, str]:
         return {
             "name": self.name,
+            "inventory": self.name,
+            "item_id": str(self.item_id),
             "term": "bass",
             "sense_id": "bass.fish",
             "index": "0",
@@ -144,24 +182,75 @@ class World:
 _counter = itertools.count()
 
 
-def make_world(settings: Any, team_id: int) -> World:
+def _batch(session: Any, team_id: int, name: str, text: str) -> Batch:
+    batch = start_batch(
+        session,
+        team_id,
+        inventory_name=name,
+        submitted_by="matrix",
+        chunk_size=16,
+        options={"rationale": False},
+    )
+    sink = DocumentSink(session, batch)
+    sink.add(parse_document({"id": "d0", "text": text}, max_document_bytes=10_000), 1)
+    sink.close(None, database_now(session))
+    return batch
+
+
+# One occurrence's answer in the Result format, as a worker stores a doubtful one.
+_REVIEW_RESULT = {
+    "document_id": "d0",
+    "field": "text",
+    "term": "bass",
+    "start": 2,
+    "end": 6,
+    "text": "bass",
+    "sense_id": "bass.fish",
+    "tags": ["dept:fishing"],
+    "confidence": 0.52,
+    "margin": 0.04,
+    "status": "review",
+    "candidates": [
+        {"sense_id": "bass.fish", "probability": 0.52},
+        {"sense_id": "bass.music", "probability": 0.48},
+    ],
+}
+
+
+def make_world(settings: Any, team_id: int, *, queued: bool) -> World:
+    """An inventory with a queued batch; with `queued`, also a finished batch whose one
+    result (status review) is in the team's review queue, made the way the queue makes items
+    (`sync_queue`, which encodes the occurrence: so only the review routes' worlds have one)."""
     name = f"inv-{next(_counter)}"
     with session_scope(settings) as session:
         create_inventory(
             session, team_id, _inventory(name), defaults=settings.inventory_defaults()
         )
-        batch = start_batch(
-            session,
-            team_id,
-            inventory_name=name,
-            submitted_by="matrix",
-            chunk_size=16,
-            options={"rationale": False},
+        batch = _batch(session, team_id, name, "A bass.")
+        if not queued:
+            return World(team_id, name, batch.id)
+        reviewed = _batch(session, team_id, name, "A bass.")
+        reviewed.state = "done"
+        reviewed.finished_at = database_now(session)
+        row = BatchResult(
+            batch_id=reviewed.id,
+            document_position=0,
+            document_id="d0",
+            field="text",
+            occurrence_index=0,
+            term="bass",
+            sense_id="bass.fish",
+            status="review",
+            confidence=0.52,
+            result=copy.deepcopy(_REVIEW_RESULT),
         )
-        sink = DocumentSink(session, batch)
-        sink.add(parse_document({"id": "d0", "text": "A bass."}, max_document_bytes=10_000), 1)
-        sink.close(None, database_now(session))
-        return World(name, batch.id)
+        session.add(row)
+        session.flush()
+        sync_queue(session, settings, team_id)
+        item_id = session.scalars(
+            select(ReviewItem.id).where(ReviewItem.result_id == row.id)
+        ).one()
+        return World(team_id, name, batch.id, reviewed.id, item_id)
 
 
 def row_counts(settings: Any) -> dict[str, int]:
@@ -183,20 +272,28 @@ def test_a_new_route_without_a_rule_is_reported(client):
     assert rule_problems(document) == ["no rule for GET /v1/something-new"]
 
 
+@dataclass(frozen=True)
+class Key:
+    team_id: int
+    scope: str
+    token: str
+    key_id: str
+
+
 @pytest.fixture
-def callers(settings: Any) -> dict[str, tuple[int, str, str]]:
-    """label -> (team id, scope, token): three scopes in teams A and B, and A's revoked key."""
+def callers(settings: Any) -> dict[str, Key]:
+    """label -> key: three scopes in teams A and B, and A's revoked key."""
     with session_scope(settings) as session:
         team_a = create_team(session, "team-a").id
         team_b = create_team(session, "team-b").id
-        made = {
-            f"{team}-{scope}": (tid, scope, create_key(session, tid, scope).token)
-            for team, tid in (("a", team_a), ("b", team_b))
-            for scope in SCOPES
-        }
+        made = {}
+        for team, tid in (("a", team_a), ("b", team_b)):
+            for scope in SCOPES:
+                issued = create_key(session, tid, scope)
+                made[f"{team}-{scope}"] = Key(tid, scope, issued.token, issued.key_id)
         revoked = create_key(session, team_a, "admin")
         revoke_key(session, revoked.key_id)
-        made["a-revoked"] = (team_a, "admin", revoked.token)
+        made["a-revoked"] = Key(team_a, "admin", revoked.token, revoked.key_id)
     return made
 
 
@@ -214,23 +311,26 @@ def _expected(rule: Rule, label: str, scope: str, same_team: bool) -> tuple[int,
 
 
 def test_access_matrix(client, settings, callers, encoder):
-    team_a = callers["a-admin"][0]
+    team_a = callers["a-admin"].team_id
+    owner_reviewer = callers["a-review"].key_id
     failures: list[str] = []
     served = routes_of(client.get("/openapi.json").json())
-    cases = [*callers.items(), ("none", (team_a, "", ""))]
+    cases = [*callers.items(), ("none", Key(team_a, "", "", ""))]
     for (method, path), rule in sorted(RULES.items()):
         if (method, path) not in served:
             continue  # reported by test_every_route_has_exactly_one_rule
-        for label, (team, scope, token) in cases:
-            world = make_world(settings, team_a)
-            same_team = team == team_a
-            expected = _expected(rule, label, scope, same_team)
+        for label, key in cases:
+            world = make_world(settings, team_a, queued=path.startswith("/v1/review/"))
+            same_team = key.team_id == team_a
+            expected = _expected(rule, label, key.scope, same_team)
+            if rule.given is not None and expected not in ((401,), (403,)):
+                rule.given(settings, world, key.key_id if same_team else owner_reviewer)
             before = row_counts(settings) if not same_team and 404 in expected else None
             response = client.request(
                 method,
                 path.format(**world.params()),
                 json=rule.body(world) if rule.body else None,
-                headers=bearer(token) if token else {},
+                headers=bearer(key.token) if key.token else {},
             )
             if response.status_code not in expected:
                 failures.append(
@@ -242,7 +342,7 @@ def test_access_matrix(client, settings, callers, encoder):
             ).lower():
                 failures.append(f"{method} {path} as {label}: 401 without a Bearer challenge")
             if not same_team and rule.scope is not None and rule.cross == OWN:
-                for secret in (world.name + '"', world.batch_id):
+                for secret in world.secrets():
                     if secret in response.text:
                         failures.append(f"{method} {path} as {label} shows {secret!r} of team a")
             if before is not None and row_counts(settings) != before:

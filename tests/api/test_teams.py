@@ -272,3 +272,46 @@ def test_audit_log_records_keys_and_inventory_edits_and_exports_json_lines(
     assert [json.loads(line) for line in lines.text.splitlines()] == pages
     for scope in ("ingest", "review"):
         assert client.get("/v1/audit", headers=bearer(api_keys[scope])).status_code == 403
+
+
+def test_the_same_inventory_in_two_teams_never_shares_evidence(client, settings, encoder):
+    """Two teams install the same inventory document; each team's answers depend on its
+    own evidence only (a cached engine of one team is never advanced for the other)."""
+    keys = _teams(settings)
+    for team in keys:
+        made = client.post(
+            "/v1/inventories",
+            json=copy.deepcopy(SMALL_INVENTORY),
+            headers=bearer(keys[team]["admin"]),
+        )
+        assert made.status_code == 201, made.text
+
+    def similarities(team: str) -> dict[str, float]:
+        response = client.post(
+            "/v1/disambiguate",
+            json={
+                "inventory": "tiny-shop",
+                "documents": [{"id": "d", "text": "I caught a bass."}],
+                "options": {"rationale": False},
+            },
+            headers=bearer(keys[team]["ingest"]),
+        )
+        assert response.status_code == 200, response.text
+        return {c["sense_id"]: c["similarity"] for c in response.json()["results"][0]["candidates"]}
+
+    def label(team: str, sense: str, text: str) -> None:
+        occurrence = {"text": text, "start": text.index("bass"), "end": text.index("bass") + 4}
+        response = client.post(
+            "/v1/inventories/tiny-shop/evidence",
+            json={"occurrences": [{**occurrence, "term": "bass", "sense": sense}]},
+            headers=bearer(keys[team]["admin"]),
+        )
+        assert response.status_code == 201, response.text
+
+    alone = similarities("choir")  # no evidence yet
+    for n in range(6):
+        label("fishing", "bass.music", f"Turn up the bass on track {n}.")
+    moved = similarities("fishing")
+    assert moved["bass.music"] != alone["bass.music"]  # the fishing team's evidence counts
+    label("choir", "bass.fish", "We caught a bass off the pier.")
+    assert similarities("choir")["bass.music"] == alone["bass.music"]  # none of it here

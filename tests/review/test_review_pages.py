@@ -205,3 +205,39 @@ def test_quality_page_reports_agreement(queued):
         agreed = sum(machine_agreed(d) for d in decisions)
     assert f"({agreed} of {len(decisions)})" in page.text
     assert page.text.count("<svg") >= 2 and "<polyline" in page.text
+
+
+def test_another_teams_items_are_not_found_on_the_pages(queued, settings):
+    """A reviewer of another team signed in to the pages: team A's item is 404 to read,
+    decide or skip, its queue shows none of team A's work, and no row changes."""
+    from service.store.teams import create_team
+    from tests.conftest import team_keys
+
+    client = queued.pipeline.client
+    claimed = client.post(
+        "/v1/review/claims", json={"count": 1}, headers=bearer(queued.keys["review"])
+    )
+    item_id = claimed.json()["items"][0]["id"]
+    with session_scope(settings) as session:
+        other_team = create_team(session, "other").id
+    csrf = sign_in(client, team_keys(settings, other_team)["review"])
+    with session_scope(settings) as session:
+        before = session.get(ReviewItem, item_id)
+        state_before = (before.state, before.claimed_by)
+    page = client.get(f"/review/items/{item_id}")
+    assert page.status_code == 404
+    for action in ("decide", "skip"):
+        response = client.post(
+            f"/review/items/{item_id}/{action}",
+            data={"csrf": csrf, "sense": "bass.fish"},
+            follow_redirects=False,
+        )
+        assert response.status_code == 404, action
+    queue = client.get("/review")
+    assert queue.status_code == 200
+    assert queued.batch_id not in queue.text and "tiny-shop" not in queue.text
+    assert client.post("/review/undo", data={"csrf": csrf}).status_code == 404
+    with session_scope(settings) as session:
+        after = session.get(ReviewItem, item_id)
+        assert (after.state, after.claimed_by) == state_before
+        assert session.scalar(select(func.count()).select_from(ReviewDecision)) == 0
