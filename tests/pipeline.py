@@ -16,15 +16,15 @@ from fastapi.testclient import TestClient
 from sqlalchemy import func, select
 
 from service.api.app import create_app
+from service.batches.processing import RetryPolicy
+from service.batches.webhooks.sending import WebhookPolicy
 from service.config import Settings, resolve_model_dir
 from service.store.database import session_scope
 from service.store.inventories import create_inventory
 from service.store.models import ApiKey, Batch
 from service.tagging.engines import shared_engines
 from tests.conftest import bearer
-from worker.chunks import RetryPolicy
 from worker.loop import Worker, WorkerPolicy
-from worker.webhooks import WebhookPolicy
 
 FAST = WorkerPolicy(
     poll_seconds=0.05,

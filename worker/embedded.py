@@ -17,10 +17,10 @@ from fastapi import FastAPI
 from starlette.concurrency import run_in_threadpool
 
 from service.api.metrics import REGISTRY
+from service.batches.taggers import EngineTagger
 from service.config import Settings
 from worker import metrics
 from worker.loop import Worker
-from worker.taggers import EngineTagger
 
 log = logging.getLogger(__name__)
 _registered = False

@@ -1,4 +1,5 @@
-"""The worker's job loop: deliver due webhooks, claim a chunk, process it, repeat.
+"""The worker's job loop: deliver due webhooks, claim a chunk, process it, repeat; now
+and then purge batches past their team's retention.
 
 When there is nothing to do it sleeps `poll_seconds` (with jitter, so many
 workers do not poll in step). A database error never ends the loop: it is
@@ -13,20 +14,20 @@ import random
 import secrets
 import socket
 import threading
+import time
 from dataclasses import dataclass, field
 
 from sqlalchemy.orm import Session, sessionmaker
 
+from service.batches.leases import claim_next
+from service.batches.processing import ChunkProcessor, RetryPolicy
+from service.batches.repository import purge_expired
+from service.batches.taggers import EngineTagger, Tagger
+from service.batches.webhooks.sending import WebhookPolicy, deliver_next
 from service.config import Settings
-from service.store.batches import mark_running
 from service.store.clock import database_now
 from service.store.database import session_factory
-from service.store.leases import claim_chunk
-from service.store.webhook_deliveries import claim_due_webhook, record_webhook_attempt
 from worker import metrics
-from worker.chunks import ChunkProcessor, RetryPolicy
-from worker.taggers import EngineTagger, Tagger
-from worker.webhooks import WebhookPolicy, deliver
 
 log = logging.getLogger(__name__)
 
@@ -39,6 +40,7 @@ class WorkerPolicy:
     heartbeat_seconds: float | None = None  # default: a third of the lease
     retry: RetryPolicy = field(default_factory=RetryPolicy)
     webhooks: WebhookPolicy = field(default_factory=WebhookPolicy)
+    retention_check_seconds: float = 300.0
 
 
 def default_name() -> str:
@@ -64,6 +66,7 @@ class Worker:
         self.tagger = tagger or EngineTagger(settings, self.sessions)
         self.policy = policy or WorkerPolicy()
         self.stop = stop or threading.Event()
+        self._retention_due = 0.0
         self.chunks = ChunkProcessor(
             settings,
             self.sessions,
@@ -71,6 +74,7 @@ class Worker:
             stop=self.stop,
             retry=self.policy.retry,
             heartbeat_seconds=self.policy.heartbeat_seconds,
+            meter=metrics.PrometheusMeter(),
         )
 
     def run(self) -> None:
@@ -91,10 +95,29 @@ class Worker:
 
     def run_once(self) -> bool:
         """Deliver one due webhook and process one chunk; True if there was anything to do."""
+        self.purge_expired_batches()
         delivered = self.deliver_one_webhook()
         if self.stop.is_set():
             return delivered
         return self.process_one_chunk() or delivered
+
+    def purge_expired_batches(self, *, force: bool = False) -> int:
+        """Every `retention_check_seconds`, delete the documents and results of finished
+        batches past their team's retention (counts stay; each purge is audited)."""
+        now = time.monotonic()
+        if not force and now < self._retention_due:
+            return 0
+        self._retention_due = now + self.policy.retention_check_seconds
+        total = 0
+        while True:
+            with self.sessions.begin() as session:
+                purged = purge_expired(session, database_now(session))
+            total += purged
+            if purged == 0 or self.stop.is_set():
+                break
+        if total:
+            log.info("purged %d batches past their team's retention", total)
+        return total
 
     def run_until_idle(self, max_rounds: int = 10_000) -> int:
         """Work until nothing is due (for tests and one-shot runs); rounds that did work."""
@@ -104,12 +127,9 @@ class Worker:
         return rounds
 
     def process_one_chunk(self) -> bool:
-        with self.sessions.begin() as session:
-            claim = claim_chunk(session, self.name, self.settings.lease_seconds)
+        claim = claim_next(self.sessions, self.name, self.settings.lease_seconds)
         if claim is None:
             return False
-        with self.sessions.begin() as session:
-            mark_running(session, claim.batch_id, database_now(session))
         outcome = self.chunks.run(claim)
         log.info(
             "chunk %d of batch %s (try %d): %s",
@@ -121,24 +141,15 @@ class Worker:
         return True
 
     def deliver_one_webhook(self) -> bool:
-        timeout = self.settings.webhook_timeout_seconds
-        with self.sessions.begin() as session:
-            due = claim_due_webhook(session, claim_seconds=timeout * 3 + 5)
-        if due is None:
+        done = deliver_next(
+            self.sessions,
+            self.policy.webhooks,
+            timeout=self.settings.webhook_timeout_seconds,
+            allow_private=self.settings.allow_private_webhooks,
+        )
+        if done is None:
             return False
-        result = deliver(due, allow_private=self.settings.allow_private_webhooks, timeout=timeout)
-        retry_in = None if result.permanent else self.policy.webhooks.retry_in(due.attempt)
-        with self.sessions.begin() as session:
-            record_webhook_attempt(
-                session,
-                due,
-                status_code=result.status_code,
-                error=result.error,
-                duration_seconds=result.duration_seconds,
-                delivered=result.delivered,
-                retry_in=retry_in,
-            )
-        outcome = "delivered" if result.delivered else ("retry" if retry_in else "failed")
+        due, outcome = done
         metrics.WEBHOOKS.labels(outcome).inc()
         log.info("webhook for batch %s, try %d: %s", due.batch_id, due.attempt, outcome)
         return True

@@ -34,3 +34,19 @@ WEBHOOKS = Counter(
     registry=REGISTRY,
 )
 ALL = (CHUNKS, DOCUMENTS, RESULTS, TAG_SECONDS, WEBHOOKS)
+
+
+class PrometheusMeter:
+    """The batch wing's processing Meter, counted in this process's registry."""
+
+    def chunk(self, outcome: str) -> None:
+        CHUNKS.labels(outcome).inc()
+
+    def document(self, outcome: str) -> None:
+        DOCUMENTS.labels(outcome).inc()
+
+    def results(self, count: int) -> None:
+        RESULTS.inc(count)
+
+    def tag_seconds(self, seconds: float) -> None:
+        TAG_SECONDS.observe(seconds)

@@ -67,8 +67,8 @@ def upgrade() -> None:
     default_id = None
     if existing:
         op.bulk_insert(
-            teams, [{"id": 1, "name": "default", "retention_days": None,
-                     "created_at": datetime.now(UTC)}]
+            teams,
+            [{"id": 1, "name": "default", "retention_days": None, "created_at": datetime.now(UTC)}],
         )
         default_id = 1
 
@@ -93,10 +93,18 @@ def upgrade() -> None:
         batch.add_column(sa.Column("purged_at", sa.DateTime(timezone=True), nullable=True))
         batch.add_column(sa.Column("kept_counts", sa.JSON(), nullable=True))
     op.create_index("ix_batches_team_created", "batches", ["team_id", "created_at", "id"])
+    # base_url held the API's root; it now holds the batch's own URL, which the API
+    # names (the batch wing no longer spells out a route path).
+    op.execute(sa.text("UPDATE batches SET base_url = base_url || '/v1/batches/' || id"))
 
 
 def downgrade() -> None:
     op.drop_index("ix_batches_team_created", table_name="batches")
+    op.execute(
+        sa.text(
+            "UPDATE batches SET base_url = substr(base_url, 1, length(base_url) - length(id) - 12)"
+        )
+    )
     with op.batch_alter_table("batches") as batch:
         batch.drop_column("kept_counts")
         batch.drop_column("purged_at")

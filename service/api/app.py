@@ -23,7 +23,15 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service import __version__
 from service.api import metrics
 from service.api.problems import install_problem_handlers, problem_response
-from service.api.routes import batches, disambiguate, evidence, health, inventories, review
+from service.api.routes import (
+    audit,
+    batches,
+    disambiguate,
+    evidence,
+    health,
+    inventories,
+    review,
+)
 from service.config import Settings, get_settings
 from service.inventory.document import inventory_schema
 from service.store.database import require_migrated, session_factory
@@ -134,6 +142,7 @@ def create_app(settings: Settings | None = None, *, check_migrated: bool = True)
     app.include_router(evidence.router)
     app.include_router(batches.router)
     app.include_router(disambiguate.router)
+    app.include_router(audit.router)
     app.include_router(review.router)
     pages.install(app)
     _mount_docs(app)

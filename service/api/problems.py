@@ -16,6 +16,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from service.batches.errors import Refused
 from service.inventory.document import InventoryInvalid
 from service.store.errors import Conflict, NotFound
 
@@ -37,6 +38,16 @@ _TITLES = {
     429: ("too-many-requests", "Too many requests"),
     500: ("internal", "Internal server error"),
     503: ("unavailable", "The service is not ready"),
+}
+
+
+# The batch wing says why it refuses; the API owns what status that is.
+REFUSED_STATUS = {
+    "malformed": 400,
+    "invalid": 422,
+    "too_large": 413,
+    "unsupported_media": 415,
+    "conflict": 409,
 }
 
 
@@ -136,6 +147,11 @@ def install_problem_handlers(app: FastAPI) -> None:
             kind="invalid-inventory",
             errors=[p.to_json() for p in exc.problems],
         )
+
+    @app.exception_handler(Refused)
+    async def _refused(request: Request, exc: Refused) -> JSONResponse:
+        status = REFUSED_STATUS[exc.reason]
+        return problem_response(request, status, exc.detail, kind=exc.kind, **exc.extra)
 
     @app.exception_handler(NotFound)
     async def _not_found(request: Request, exc: NotFound) -> JSONResponse:

@@ -1,4 +1,7 @@
-"""The status document of a batch, shared by `GET /v1/batches/{id}` and the webhook body."""
+"""The status document of a batch, shared by the API's batch status and the webhook body.
+
+Links are built from the batch's URL, which the caller names: the API from its
+routes, the webhook from the URL stored at submission. No route path is spelled here."""
 
 from __future__ import annotations
 
@@ -40,8 +43,8 @@ def _time(value: datetime | None) -> str | None:
     return moment.isoformat().replace("+00:00", "Z") if moment is not None else None
 
 
-def batch_links(batch_id: str, base_url: str = "") -> dict[str, str]:
-    root = f"{base_url.rstrip('/')}/v1/batches/{batch_id}"
+def batch_links(root: str) -> dict[str, str]:
+    """The links of a batch whose own URL is `root`."""
     return {
         "self": root,
         "results": f"{root}/results",
@@ -51,8 +54,9 @@ def batch_links(batch_id: str, base_url: str = "") -> dict[str, str]:
 
 
 def status_document(
-    batch: Batch, counts: BatchCounts, attempts: Sequence[WebhookAttempt] = ()
+    batch: Batch, counts: BatchCounts, attempts: Sequence[WebhookAttempt] = (), *, url: str
 ) -> dict[str, Any]:
+    """The batch as `GET` shows it; `url` is the batch's own URL (its links start there)."""
     started, finished = as_utc_or_none(batch.started_at), as_utc_or_none(batch.finished_at)
     webhook = None
     if batch.callback_url:
@@ -87,14 +91,15 @@ def status_document(
             ),
         },
         "error": batch.error,
+        "purged_at": _time(batch.purged_at),
         "webhook": webhook,
-        "links": batch_links(batch.id),
+        "links": batch_links(url),
     }
 
 
 def webhook_body(batch: Batch, counts: BatchCounts) -> dict[str, Any]:
     """What the callback URL receives when the batch ends."""
-    links = batch_links(batch.id, batch.base_url)
+    links = batch_links(batch.base_url)
     return {
         "event": batch.webhook_event or "batch.finished",
         "batch_id": batch.id,

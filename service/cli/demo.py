@@ -30,7 +30,7 @@ from service.config import Settings, get_settings
 from service.store import inventories
 from service.store.database import session_scope, upgrade
 from service.store.keys import create_key
-from service.store.teams import demo_team
+from service.store.teams import ensure_team
 
 TERMINAL_STATES = {"done", "failed", "cancelled"}
 
@@ -68,6 +68,7 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
 
 
 DEMO_TEAM = "demo"
+OTHER_TEAM = "demo-neighbours"
 
 
 def _fresh_sqlite(url: str) -> None:
@@ -211,7 +212,7 @@ def run(args: argparse.Namespace) -> int:
     upgrade(settings.database_url)
     document = json.loads((args.corpus / "inventory.json").read_text(encoding="utf-8"))
     with session_scope(settings) as session:
-        team = demo_team(session, DEMO_TEAM)
+        team = ensure_team(session, DEMO_TEAM)
         inventory = inventories.import_inventory_document(session, team.id, document)
         name, version = inventory.name, inventory.version
         admin = create_key(session, team.id, "admin", "demo")
@@ -262,6 +263,7 @@ def run(args: argparse.Namespace) -> int:
                     if line.strip():
                         out.write(line + "\n")
                         results.append(json.loads(line))
+            _show_isolation(settings, client, submitted["links"]["self"])
         summary = summarise(results, _located_labels(args.corpus, held_out), status)
         print(summary)
         (args.output / "summary.txt").write_text(summary + "\n", encoding="utf-8")
@@ -279,6 +281,18 @@ def run(args: argparse.Namespace) -> int:
         return 0
     finally:
         server.stop()
+
+
+def _show_isolation(settings: Settings, client: httpx.Client, batch_url: str) -> None:
+    """A second team on the same service: its admin key cannot see the demo team's batch."""
+    with session_scope(settings) as session:
+        other = create_key(session, ensure_team(session, OTHER_TEAM).id, "admin", "demo").token
+    answer = client.get(batch_url, headers={"Authorization": f"Bearer {other}"})
+    print(
+        f"team '{OTHER_TEAM}' asks for this batch with its own admin key: HTTP "
+        f"{answer.status_code} (each team sees only its own inventories and batches)",
+        file=sys.stderr,
+    )
 
 
 def _run_subcommand(*words: str) -> None:

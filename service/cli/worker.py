@@ -50,10 +50,10 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from worker.chunks import RetryPolicy
+    from service.batches.processing import RetryPolicy
+    from service.batches.taggers import EngineTagger
+    from service.batches.webhooks.sending import WebhookPolicy
     from worker.loop import Worker, WorkerPolicy
-    from worker.taggers import EngineTagger
-    from worker.webhooks import WebhookPolicy
 
     settings = get_settings()
     require_migrated(settings.database_url)

@@ -19,6 +19,7 @@ import numpy as np
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from service.batches.repository import schedule_webhook
 from service.config import Settings
 from service.engine.assignment import Assignment, assign
 from service.engine.types import Document, InventorySpec
@@ -34,7 +35,6 @@ from service.review.queue import (
     vector_from_bytes,
 )
 from service.store.audit import record_audit
-from service.store.batches import schedule_webhook
 from service.store.clock import as_utc_or_none, database_now
 from service.store.errors import Conflict, NotFound
 from service.store.evidence import evidence_watermark

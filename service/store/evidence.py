@@ -8,6 +8,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from service.engine.types import Evidence
+from service.store.audit import record_audit
 from service.store.errors import Conflict
 from service.store.inventories import get_inventory, load_inventory_spec
 from service.store.models import EvidenceRecord
@@ -16,7 +17,12 @@ INSERT_BATCH = 2_000
 
 
 def add_evidence(
-    session: Session, team_id: int, inventory_name: str, evidences: Iterable[Evidence]
+    session: Session,
+    team_id: int,
+    inventory_name: str,
+    evidences: Iterable[Evidence],
+    *,
+    key_id: str | None = None,
 ) -> int:
     """Store evidence for known terms and senses; returns how many rows were added.
 
@@ -54,7 +60,9 @@ def add_evidence(
             pending = []
     session.add_all(pending)
     session.flush()
-    return added + len(pending)
+    added += len(pending)
+    record_audit(session, team_id, key_id, "evidence.add", inventory_name, {"added": added})
+    return added
 
 
 def evidence_watermark(session: Session, inventory_id: int) -> int:

@@ -223,6 +223,7 @@ class Batch(Base):
     submitted_by: Mapped[str] = mapped_column(String(32))
     idempotency_key: Mapped[str | None] = mapped_column(String(200), nullable=True)
     request_digest: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    # The batch's own absolute URL as the API named it at submission (the webhook's links).
     base_url: Mapped[str] = mapped_column(String(500), default="")
     callback_url: Mapped[str | None] = mapped_column(Text, nullable=True)
     webhook_state: Mapped[str] = mapped_column(String(16), default="none")

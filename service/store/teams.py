@@ -84,7 +84,7 @@ def set_retention(session: Session, team_id: int, days: int | None) -> Team:
     return team
 
 
-def demo_team(session: Session, name: str) -> Team:
-    """The team `name`, made if missing (the demo reuses its team across runs)."""
+def ensure_team(session: Session, name: str) -> Team:
+    """The team `name`, made if missing (the demo reuses its teams across runs)."""
     found = session.scalars(select(Team).where(Team.name == name)).one_or_none()
     return found if found is not None else create_team(session, name)

@@ -143,7 +143,7 @@ def test_cancel_stops_pending_chunks_and_keeps_results(make_pipeline):
 
 def test_cancelled_lease_holder_cannot_write(make_pipeline):
     """A worker busy with a chunk when the batch is cancelled writes nothing."""
-    from service.store.leases import LeaseLost, claim_chunk, hold_lease
+    from service.batches.leases import LeaseLost, claim_chunk, hold_lease
 
     pipe = make_pipeline(chunk_size=10)
     batch = pipe.submit(documents(3))

@@ -10,8 +10,8 @@ import time
 
 import pytest
 
-from service.batches.signatures import verify
-from service.batches.webhook_urls import WebhookUrlRefused, address_refusal, check_url
+from service.batches.webhooks.signatures import verify
+from service.batches.webhooks.urls import WebhookUrlRefused, address_refusal, check_url
 from tests.pipeline import documents
 from tests.problem_details import assert_problem
 

@@ -101,8 +101,12 @@ def test_demo_runs_the_main_job_and_reports(tiny_corpus, tmp_path, monkeypatch, 
         ]
     )
     get_settings.cache_clear()
-    printed = capsys.readouterr().out
+    captured = capsys.readouterr()
+    printed = captured.out
     assert status == 0, printed
+    assert "admin API key of team 'demo'" in printed
+    # The second team on the service cannot see the demo team's batch.
+    assert "with its own admin key: HTTP 404" in captured.err
     results = [json.loads(line) for line in (output / "results.jsonl").read_text().splitlines()]
     # d1 has two occurrences, d3 one in the title and one in the text, d5 none: 9 in all.
     assert len(results) == 9

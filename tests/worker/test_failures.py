@@ -6,10 +6,10 @@ from __future__ import annotations
 import time
 from collections.abc import Sequence
 
+from service.batches.leases import Claim
+from service.batches.taggers import EngineTagger
 from service.engine import Document, DocumentResult
-from service.store.leases import Claim
 from tests.pipeline import assert_same_results, documents
-from worker.taggers import EngineTagger
 
 
 class PoisonTagger:

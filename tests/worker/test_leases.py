@@ -10,8 +10,8 @@ import pytest
 from sqlalchemy import func, insert, select
 from sqlalchemy.exc import IntegrityError
 
-from service.store.database import session_factory
-from service.store.leases import (
+from service.batches.heartbeat import LeaseKeeper
+from service.batches.leases import (
     LeaseLost,
     claim_chunk,
     hold_lease,
@@ -19,9 +19,9 @@ from service.store.leases import (
     release_chunk,
     write_document_results,
 )
+from service.store.database import session_factory
 from service.store.models import BatchChunk, BatchResult
 from tests.pipeline import assert_same_results, documents
-from worker.heartbeat import LeaseKeeper
 
 
 def test_an_expired_lease_is_reclaimed_and_the_old_holder_writes_nothing(make_pipeline):

@@ -1,38 +1,44 @@
-"""Batches: submit (JSON or streamed NDJSON), follow, cancel, and read results.
+"""Batches over HTTP: a thin layer over the batch wing (`service.batches`).
 
-Submitting needs scope ingest; reading needs any key. `Idempotency-Key` makes a
-retried submission safe: the same key with the same body (and query) answers
-200 with the batch first created; with a different body, 409.
+Submitting needs scope ingest; reading needs any key of the batch's team (another
+team's batch is 404, like a missing one). `Idempotency-Key` makes a retried
+submission safe: the same key with the same body (and query) answers 200 with
+the batch first created; with a different body, 409. The wing's `Refused` errors
+become problem documents in `service.api.problems`.
 """
 
 from __future__ import annotations
 
-import json
-from collections.abc import Callable, Iterator
+from datetime import UTC, datetime
 from typing import Any, Literal
 
 from fastapi import APIRouter, Depends, Header, Query, Request, Response
-from fastapi.responses import JSONResponse, StreamingResponse
-from sqlalchemy.orm import Session, sessionmaker
+from fastapi.responses import JSONResponse
+from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 
 from service.api import queue_metrics
 from service.api.deps import Caller, any_key, get_session, get_settings_dep, ingest_key
-from service.api.intake import IdempotencyClash, Intake
 from service.api.problems import ProblemError
 from service.api.schemas import documents_body_schema
-from service.batches.cursors import CursorInvalid, decode_cursor, encode_cursor
-from service.batches.status import status_document
+from service.api.streaming import NDJSON, stream_pages, wants_ndjson
+from service.batches import repository as batches
+from service.batches import results as batch_results
+from service.batches.cursors import (
+    CursorInvalid,
+    decode_cursor,
+    decode_listing_cursor,
+    encode_cursor,
+    encode_listing_cursor,
+)
+from service.batches.intake import Intake, Submission, check_idempotency_key
 from service.config import Settings
-from service.store import batch_results, batches
 from service.store.clock import database_now
-from service.store.inventories import get_inventory, version_document
-from service.store.models import Batch
+from service.store.models import BATCH_STATES, Batch
 
 router = APIRouter(prefix="/v1", tags=["batches"])
 queue_metrics.install()
 
-NDJSON = "application/x-ndjson"
 PAGE_DEFAULT = 100
 PAGE_MAX = 1000
 STREAM_PAGE = 500
@@ -57,35 +63,12 @@ _SUBMIT_BODY = {
 }
 
 
-def _status(session: Session, batch: Batch) -> dict[str, Any]:
-    return status_document(
-        batch, batches.batch_counts(session, batch), batches.webhook_attempts(session, batch.id)
-    )
+def _path(request: Request, batch_id: str) -> str:
+    return request.app.url_path_for("get_batch", batch_id=batch_id)
 
 
-def _check_idempotency_key(value: str | None) -> str | None:
-    if value is None:
-        return None
-    if not 1 <= len(value) <= 200 or not value.isprintable() or not value.isascii():
-        raise ProblemError(422, "Idempotency-Key must be 1 to 200 printable ASCII characters")
-    return value
-
-
-async def _replay(intake: Intake, session: Session, existing: Batch) -> JSONResponse:
-    digest = await intake.drain()
-    if digest != existing.request_digest:
-        raise ProblemError(
-            409,
-            "this Idempotency-Key was used with a different request body",
-            kind="idempotency-key-reused",
-            batch_id=existing.id,
-        )
-    body = await run_in_threadpool(_status, session, existing)
-    return JSONResponse(
-        body,
-        status_code=200,
-        headers={"Location": f"/v1/batches/{existing.id}", "Idempotent-Replayed": "true"},
-    )
+def _status(session: Session, request: Request, batch: Batch) -> dict[str, Any]:
+    return batches.describe(session, batch, _path(request, batch.id))
 
 
 @router.post(
@@ -104,59 +87,95 @@ async def submit_batch(
     settings: Settings = Depends(get_settings_dep),
     caller: Caller = Depends(ingest_key),
 ) -> JSONResponse:
-    key = _check_idempotency_key(idempotency_key)
+    root = str(request.base_url).rstrip("/")
+    submission = Submission(
+        body=request.stream(),
+        media=request.headers.get("content-type", ""),
+        query=request.query_params.multi_items(),
+        batch_url=lambda batch_id: root + _path(request, batch_id),
+    )
     intake = Intake(
-        request,
+        submission,
         session,
         settings,
         key_id=caller.key_id,
         team_id=caller.team_id,
-        idempotency_key=key,
+        idempotency_key=check_idempotency_key(idempotency_key),
     )
-    await intake.spool_for_single_writer()
-    if key is not None:
-        existing = await run_in_threadpool(
-            batches.find_by_idempotency_key, session, caller.team_id, caller.key_id, key
-        )
-        if existing is not None:
-            return await _replay(intake, session, existing)
-    try:
-        batch = await intake.read()
-        await run_in_threadpool(session.commit)
-    except IdempotencyClash:
-        existing = await run_in_threadpool(
-            batches.find_by_idempotency_key, session, caller.team_id, caller.key_id, key or ""
-        )
-        if existing is None:
-            raise ProblemError(
-                409, "a submission with this Idempotency-Key is in progress"
-            ) from None
-        return await _replay(intake, session, existing)
-    except BaseException:
-        await run_in_threadpool(session.rollback)
-        raise
+    submitted = await intake.submit()
+    location = {"Location": _path(request, submitted.batch.id)}
+    body = await run_in_threadpool(_status, session, request, submitted.batch)
+    if submitted.replayed:
+        replayed = {**location, "Idempotent-Replayed": "true"}
+        return JSONResponse(body, status_code=200, headers=replayed)
     queue_metrics.SUBMITTED.labels("ndjson" if intake.media != "application/json" else "json").inc()
-    body = await run_in_threadpool(_status, session, batch)
-    return JSONResponse(body, status_code=202, headers={"Location": f"/v1/batches/{batch.id}"})
+    return JSONResponse(body, status_code=202, headers=location)
+
+
+@router.get("/batches", summary="The team's batches, newest first (cursor pages)")
+def list_batches(
+    request: Request,
+    state: Literal[BATCH_STATES] | None = None,  # type: ignore[valid-type]
+    inventory: str | None = Query(default=None, max_length=64),
+    created_after: datetime | None = Query(
+        default=None, description="RFC 3339 date-time; only batches created after it"
+    ),
+    limit: int = Query(default=PAGE_DEFAULT, ge=1, le=PAGE_MAX),
+    cursor: str | None = None,
+    session: Session = Depends(get_session),
+    caller: Caller = Depends(any_key),
+) -> dict[str, Any]:
+    try:
+        before = decode_listing_cursor(cursor) if cursor is not None else None
+    except CursorInvalid as exc:
+        raise ProblemError(422, str(exc), kind="invalid-cursor") from None
+    if created_after is not None and created_after.tzinfo is None:
+        created_after = created_after.replace(tzinfo=UTC)
+    rows, following = batches.list_batches(
+        session,
+        caller.team_id,
+        state=state,
+        inventory=inventory,
+        created_after=created_after,
+        before=before,
+        limit=limit,
+    )
+    next_cursor = encode_listing_cursor(*following) if following is not None else None
+    return {
+        "batches": [_status(session, request, batch) for batch in rows],
+        "next_cursor": next_cursor,
+    }
 
 
 @router.get("/batches/{batch_id}", summary="State, counts, progress, timings, webhook attempts")
 def get_batch(
-    batch_id: str, session: Session = Depends(get_session), caller: Caller = Depends(any_key)
+    batch_id: str,
+    request: Request,
+    session: Session = Depends(get_session),
+    caller: Caller = Depends(any_key),
 ) -> dict[str, Any]:
-    return _status(session, batches.get_batch(session, caller.team_id, batch_id))
+    return _status(session, request, batches.get_batch(session, caller.team_id, batch_id))
 
 
 @router.delete(
     "/batches/{batch_id}",
-    summary="Cancel: chunks not yet done are not processed; results so far stay",
+    summary="Cancel: chunks not yet done are not processed; results so far stay. "
+    "With ?purge=true also delete its documents and results now (counts stay)",
 )
 def cancel_batch(
-    batch_id: str, session: Session = Depends(get_session), caller: Caller = Depends(ingest_key)
+    batch_id: str,
+    request: Request,
+    purge: bool = False,
+    session: Session = Depends(get_session),
+    caller: Caller = Depends(ingest_key),
 ) -> dict[str, Any]:
-    batch = batches.cancel_batch(session, caller.team_id, batch_id, database_now(session))
+    now = database_now(session)
+    if purge:
+        batch = batches.purge_batch(session, caller.team_id, batch_id, now, key_id=caller.key_id)
+    else:
+        batch = batches.cancel_batch(session, caller.team_id, batch_id, now)
     session.commit()
-    return _status(session, batch)
+    return _status(session, request, batch)
 
 
 def _cursor(cursor: str | None, size: int) -> tuple[int, ...] | None:
@@ -166,32 +185,6 @@ def _cursor(cursor: str | None, size: int) -> tuple[int, ...] | None:
         return decode_cursor(cursor, size)
     except CursorInvalid as exc:
         raise ProblemError(422, str(exc), kind="invalid-cursor") from None
-
-
-def _wants_ndjson(request: Request) -> bool:
-    return NDJSON in request.headers.get("accept", "")
-
-
-def _stream(
-    sessions: sessionmaker[Session],
-    page: Callable[[Session, Any], tuple[list[Any], Any]],
-    start: Any,
-) -> StreamingResponse:
-    """NDJSON of every row from `start` on, one short transaction per page: a slow
-    reader never holds a database lock or connection between pages."""
-
-    def lines() -> Iterator[bytes]:
-        after = start
-        while True:
-            with sessions() as session:
-                rows, after = page(session, after)
-                session.rollback()
-            for row in rows:
-                yield json.dumps(row, ensure_ascii=False).encode("utf-8") + b"\n"
-            if after is None:
-                return
-
-    return StreamingResponse(lines(), media_type=NDJSON)
 
 
 @router.get(
@@ -215,32 +208,22 @@ def list_results(
     batch = batches.get_batch(session, caller.team_id, batch_id)
     chosen = batch_results.ResultFilter(status, term, sense, min_confidence, max_confidence)
     after = _cursor(cursor, 2)
-    if _wants_ndjson(request):
+    if wants_ndjson(request):
         session.expunge(batch)  # keep its loaded values: the pages read it in other sessions
         session.rollback()
 
         def page(s: Session, position: Any) -> tuple[list[Any], Any]:
             return batch_results.results_page(s, batch, chosen, after=position, limit=STREAM_PAGE)
 
-        return _stream(request.app.state.sessions, page, after)
-    rows, following = batch_results.results_page(
-        session,
-        batch,
-        chosen,
-        after=after,
-        limit=limit,  # type: ignore[arg-type]
-    )
+        return stream_pages(request.app.state.sessions, page, after)
+    start = (after[0], after[1]) if after is not None else None
+    rows, following = batch_results.results_page(session, batch, chosen, after=start, limit=limit)
     return JSONResponse(
         {
             "results": rows,
             "next_cursor": encode_cursor(*following) if following is not None else None,
         }
     )
-
-
-def _tags(session: Session, batch: Batch) -> dict[str, list[str]]:
-    inventory = get_inventory(session, batch.team_id, batch.inventory_name)
-    return batch_results.sense_tags(version_document(session, inventory, batch.inventory_version))
 
 
 @router.get(
@@ -256,7 +239,7 @@ def list_summaries(
     caller: Caller = Depends(any_key),
 ) -> Response:
     batch = batches.get_batch(session, caller.team_id, batch_id)
-    tags = _tags(session, batch)
+    tags = batch_results.batch_tags(session, batch)
     after = _cursor(cursor, 1)
     start = after[0] if after is not None else None
 
@@ -264,10 +247,10 @@ def list_summaries(
         documents, following = batch_results.documents_page(s, batch, after=position, limit=size)
         return batch_results.summaries(s, batch, documents, tags), following
 
-    if _wants_ndjson(request):
+    if wants_ndjson(request):
         session.expunge(batch)  # keep its loaded values: the pages read it in other sessions
         session.rollback()
-        return _stream(request.app.state.sessions, page, start)
+        return stream_pages(request.app.state.sessions, page, start)
     rows, following = page(session, start, limit)
     return JSONResponse(
         {
@@ -289,7 +272,8 @@ def document_summary(
 ) -> dict[str, Any]:
     batch = batches.get_batch(session, caller.team_id, batch_id)
     document = batch_results.find_document(session, batch, document_id)
-    return batch_results.summaries(session, batch, [document], _tags(session, batch))[0]
+    tags = batch_results.batch_tags(session, batch)
+    return batch_results.summaries(session, batch, [document], tags)[0]
 
 
 @router.get("/batches/{batch_id}/failures", summary="Documents that failed, with their error")

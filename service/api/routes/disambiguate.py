@@ -16,10 +16,10 @@ from starlette.concurrency import run_in_threadpool
 
 from service.api.bodies import decode_json_object
 from service.api.deps import Caller, get_session, get_settings_dep, ingest_key
-from service.api.intake import parse_options
 from service.api.problems import ProblemError
 from service.api.schemas import documents_body_schema
 from service.batches.documents import DocumentInvalid, InputDocument, parse_document
+from service.batches.intake import parse_options
 from service.config import Settings
 from service.store.evidence import evidence_watermark
 from service.store.inventories import get_inventory

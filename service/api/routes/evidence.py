@@ -48,6 +48,7 @@ def add_evidence(
             Evidence(0, item.term, item.sense, item.text, item.start, item.end, "import")
             for item in body.occurrences
         ),
+        key_id=caller.key_id,
     )
     session.commit()
     return {"added": added}

@@ -25,9 +25,9 @@ from datetime import datetime, timedelta
 from typing import Any
 
 from sqlalchemy import func, insert, select, update
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, sessionmaker
 
-from service.store.batches import finish_if_complete
+from service.batches.repository import finish_if_complete, mark_running
 from service.store.clock import database_now
 from service.store.models import Batch, BatchChunk, BatchDocument, BatchResult
 
@@ -85,6 +85,17 @@ def claim_chunk(session: Session, owner: str, lease_seconds: float) -> Claim | N
         evidence_watermark=batch.evidence_watermark,
         options=dict(batch.options or {}),
     )
+
+
+def claim_next(sessions: sessionmaker[Session], owner: str, lease_seconds: float) -> Claim | None:
+    """Lease the next due chunk and mark its batch running, in two short transactions
+    (the batch row is never locked after a chunk row, so no deadlock with `hold_lease`)."""
+    with sessions.begin() as session:
+        claim = claim_chunk(session, owner, lease_seconds)
+    if claim is not None:
+        with sessions.begin() as session:
+            mark_running(session, claim.batch_id, database_now(session))
+    return claim
 
 
 def _held(claim: Claim) -> Any:

@@ -13,14 +13,17 @@ cancelled. A batch ends "failed" only when not one document could be processed
 from __future__ import annotations
 
 import secrets
-from datetime import datetime
+from collections.abc import Callable
+from dataclasses import asdict
+from datetime import datetime, timedelta
 from typing import Any
 
-from sqlalchemy import func, insert, select, update
+from sqlalchemy import delete, func, insert, or_, select, update
 from sqlalchemy.orm import Session
 
 from service.batches.documents import InputDocument
-from service.batches.status import BatchCounts
+from service.batches.status import BatchCounts, status_document
+from service.store.audit import record_audit
 from service.store.errors import Conflict, NotFound
 from service.store.evidence import evidence_watermark
 from service.store.inventories import get_inventory
@@ -30,6 +33,7 @@ from service.store.models import (
     BatchChunk,
     BatchDocument,
     BatchResult,
+    Team,
     WebhookAttempt,
 )
 
@@ -50,7 +54,7 @@ def start_batch(
     options: dict[str, Any],
     callback_url: str | None = None,
     idempotency_key: str | None = None,
-    base_url: str = "",
+    batch_url: Callable[[str], str] | None = None,
 ) -> Batch:
     """Create the batch row pinned to the current inventory version and evidence watermark.
 
@@ -58,8 +62,9 @@ def start_batch(
     before any document is read.
     """
     inventory = get_inventory(session, team_id, inventory_name)
+    batch_id = new_batch_id()
     batch = Batch(
-        id=new_batch_id(),
+        id=batch_id,
         team_id=team_id,
         inventory_id=inventory.id,
         inventory_name=inventory.name,
@@ -73,7 +78,7 @@ def start_batch(
         submitted_by=submitted_by,
         idempotency_key=idempotency_key,
         callback_url=callback_url,
-        base_url=base_url,
+        base_url=batch_url(batch_id) if batch_url else "",
         webhook_state="none",
         webhook_attempts=0,
     )
@@ -173,6 +178,8 @@ def find_by_idempotency_key(
 
 
 def batch_counts(session: Session, batch: Batch) -> BatchCounts:
+    if batch.kept_counts is not None:  # purged: the rows are gone, their counts were kept
+        return BatchCounts(**batch.kept_counts)
     documents = dict(
         session.execute(
             select(BatchDocument.state, func.count())
@@ -284,3 +291,113 @@ def finish_if_complete(session: Session, batch: Batch, now: datetime) -> bool:
     schedule_webhook(batch, now)
     session.flush()
     return True
+
+
+def describe(session: Session, batch: Batch, url: str) -> dict[str, Any]:
+    """The status document of `batch`, whose own URL is `url`."""
+    return status_document(
+        batch, batch_counts(session, batch), webhook_attempts(session, batch.id), url=url
+    )
+
+
+def list_batches(
+    session: Session,
+    team_id: int,
+    *,
+    state: str | None = None,
+    inventory: str | None = None,
+    created_after: datetime | None = None,
+    before: tuple[datetime, str] | None = None,
+    limit: int,
+) -> tuple[list[Batch], tuple[datetime, str] | None]:
+    """The team's batches, newest first, after the (created_at, id) key `before`; and the
+    key of the next page (None on the last)."""
+    query = select(Batch).where(Batch.team_id == team_id)
+    if state is not None:
+        query = query.where(Batch.state == state)
+    if inventory is not None:
+        query = query.where(Batch.inventory_name == inventory)
+    if created_after is not None:
+        query = query.where(Batch.created_at > created_after)
+    if before is not None:
+        at, batch_id = before
+        query = query.where(
+            or_(Batch.created_at < at, (Batch.created_at == at) & (Batch.id < batch_id))
+        )
+    rows = list(
+        session.scalars(query.order_by(Batch.created_at.desc(), Batch.id.desc()).limit(limit + 1))
+    )
+    more = len(rows) > limit
+    rows = rows[:limit]
+    return rows, ((rows[-1].created_at, rows[-1].id) if more and rows else None)
+
+
+def _purge_rows(session: Session, batch: Batch, now: datetime) -> dict[str, int]:
+    """Delete a batch's documents, chunks and results, keeping its counts; what was deleted."""
+    counts = batch_counts(session, batch)
+    deleted = {
+        "documents": session.execute(
+            delete(BatchDocument).where(BatchDocument.batch_id == batch.id)
+        ).rowcount,  # type: ignore[attr-defined]
+        "results": session.execute(
+            delete(BatchResult).where(BatchResult.batch_id == batch.id)
+        ).rowcount,  # type: ignore[attr-defined]
+    }
+    session.execute(delete(BatchChunk).where(BatchChunk.batch_id == batch.id))
+    batch.kept_counts = asdict(counts)
+    batch.purged_at = now
+    session.flush()
+    return deleted
+
+
+def purge_batch(
+    session: Session, team_id: int, batch_id: str, now: datetime, *, key_id: str | None
+) -> Batch:
+    """Delete the batch's documents and results now (cancelling it first if it runs);
+    counts stay. Purging a purged batch changes nothing. Audited."""
+    batch = get_batch(session, team_id, batch_id, for_update=True)
+    if batch.purged_at is not None:
+        return batch
+    if batch.state not in TERMINAL_BATCH_STATES:
+        cancel_batch(session, team_id, batch_id, now)
+    deleted = _purge_rows(session, batch, now)
+    record_audit(session, team_id, key_id, "batch.purge", batch.id, {"why": "request", **deleted})
+    return batch
+
+
+def purge_expired(session: Session, now: datetime, *, limit: int = 20) -> int:
+    """Purge up to `limit` finished batches older than their team's retention; how many.
+
+    Run by the worker. A batch counts from when it finished; the audit line has
+    no key (the service did it) and says why.
+    """
+    purged = 0
+    teams = session.scalars(select(Team).where(Team.retention_days.is_not(None)))
+    for team in list(teams):
+        cutoff = now - timedelta(days=team.retention_days or 0)
+        due = session.scalars(
+            select(Batch)
+            .where(
+                Batch.team_id == team.id,
+                Batch.state.in_(TERMINAL_BATCH_STATES),
+                Batch.purged_at.is_(None),
+                Batch.finished_at < cutoff,
+            )
+            .order_by(Batch.finished_at)
+            .limit(limit - purged)
+            .with_for_update(skip_locked=True)
+        )
+        for batch in list(due):
+            deleted = _purge_rows(session, batch, now)
+            record_audit(
+                session,
+                team.id,
+                None,
+                "batch.purge",
+                batch.id,
+                {"why": "retention", "retention_days": team.retention_days, **deleted},
+            )
+            purged += 1
+        if purged >= limit:
+            break
+    return purged

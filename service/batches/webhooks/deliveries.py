@@ -11,8 +11,8 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service.batches.repository import batch_counts
 from service.batches.status import webhook_body
-from service.store.batches import batch_counts
 from service.store.clock import database_now
 from service.store.models import ApiKey, Batch, WebhookAttempt
 

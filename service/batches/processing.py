@@ -21,15 +21,13 @@ import threading
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Literal
+from typing import Any, Literal, Protocol
 
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.batches.documents import stored_document
-from service.config import Settings
-from service.engine import EngineError
-from service.store.clock import database_now
-from service.store.leases import (
+from service.batches.heartbeat import LeaseKeeper
+from service.batches.leases import (
     Claim,
     LeaseLost,
     PendingDocument,
@@ -41,9 +39,10 @@ from service.store.leases import (
     start_document_attempt,
     write_document_results,
 )
-from worker import metrics
-from worker.heartbeat import LeaseKeeper
-from worker.taggers import Tagger
+from service.batches.taggers import Tagger
+from service.config import Settings
+from service.engine import EngineError
+from service.store.clock import database_now
 
 log = logging.getLogger(__name__)
 
@@ -59,6 +58,31 @@ class RetryPolicy:
 
     def delay(self, attempts: int) -> float:
         return min(self.max_seconds, self.base_seconds * 2 ** max(0, attempts - 1))
+
+
+class Meter(Protocol):
+    """Where processing reports what it did (the worker process counts it in Prometheus)."""
+
+    def chunk(self, outcome: str) -> None: ...
+    def document(self, outcome: str) -> None: ...
+    def results(self, count: int) -> None: ...
+    def tag_seconds(self, seconds: float) -> None: ...
+
+
+class NoMeter:
+    """A Meter that keeps nothing."""
+
+    def chunk(self, outcome: str) -> None:
+        pass
+
+    def document(self, outcome: str) -> None:
+        pass
+
+    def results(self, count: int) -> None:
+        pass
+
+    def tag_seconds(self, seconds: float) -> None:
+        pass
 
 
 def _describe(exc: BaseException) -> str:
@@ -77,6 +101,7 @@ class ChunkProcessor:
         stop: threading.Event,
         retry: RetryPolicy,
         heartbeat_seconds: float | None = None,
+        meter: Meter | None = None,
     ) -> None:
         self.settings = settings
         self.sessions = sessions
@@ -84,6 +109,7 @@ class ChunkProcessor:
         self.stop = stop
         self.retry = retry
         self.heartbeat_seconds = heartbeat_seconds or max(0.2, settings.lease_seconds / 3)
+        self.meter: Meter = meter or NoMeter()
 
     def run(self, claim: Claim) -> Outcome:
         keeper = LeaseKeeper(
@@ -98,7 +124,7 @@ class ChunkProcessor:
         except LeaseLost as exc:
             log.warning("%s; its results were not written", exc)
             outcome = "lease_lost"
-        metrics.CHUNKS.labels(outcome).inc()
+        self.meter.chunk(outcome)
         return outcome
 
     def _run(self, claim: Claim, keeper: LeaseKeeper) -> Outcome:
@@ -130,7 +156,7 @@ class ChunkProcessor:
             [stored_document(d.document_id, d.fields) for d in documents],
             rationale=bool(claim.options.get("rationale", True)),
         )
-        metrics.TAG_SECONDS.observe(time.perf_counter() - started)
+        self.meter.tag_seconds(time.perf_counter() - started)
         if [r.document_id for r in results] != [d.document_id for d in documents]:
             raise RuntimeError("the engine returned results for other documents than asked")
         return [[o.to_json() for o in r.occurrences] for r in results]
@@ -148,9 +174,9 @@ class ChunkProcessor:
             for document, results in zip(documents, tagged, strict=True):
                 if write_document_results(session, document, results, now):
                     written += len(results)
-                    metrics.DOCUMENTS.labels("done").inc()
+                    self.meter.document("done")
             complete_chunk(session, batch, chunk)
-        metrics.RESULTS.inc(written)
+        self.meter.results(written)
         return "done"
 
     def _one_by_one(
@@ -179,8 +205,8 @@ class ChunkProcessor:
             with self.sessions.begin() as session:
                 hold_lease(session, claim)
                 if write_document_results(session, started, results, database_now(session)):
-                    metrics.DOCUMENTS.labels("done").inc()
-                    metrics.RESULTS.inc(len(results))
+                    self.meter.document("done")
+                    self.meter.results(len(results))
         with self.sessions.begin() as session:
             batch, chunk = hold_lease(session, claim)
             if complete_chunk(session, batch, chunk):
@@ -208,4 +234,4 @@ class ChunkProcessor:
                 max_attempts=self.settings.max_attempts,
                 now=database_now(session),
             )
-        metrics.DOCUMENTS.labels("failed" if failed else "error").inc()
+        self.meter.document("failed" if failed else "error")

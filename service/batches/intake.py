@@ -1,6 +1,8 @@
-"""Batch intake: from a request body to stored rows in one transaction.
+"""Batch intake: from a submitted body to stored rows in one transaction.
 
-The body is read as it arrives (`request.stream()`), hashed for the
+No HTTP here: the API hands over a `Submission` (the body as an async byte
+stream, its media type, the query, how to name a batch's URL) and maps
+`Refused` to problem documents. The body is read as it arrives, hashed for the
 idempotency check as it goes, cut into documents that are validated, counted
 (occurrences, with the pinned inventory's finder) and inserted a group at a
 time. Any problem raises before commit, so a refused submission stores
@@ -15,25 +17,24 @@ an "inventory" member, so the two cannot be confused.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import tempfile
-from collections.abc import AsyncIterator
+from collections.abc import AsyncIterator, Callable, Sequence
 from dataclasses import dataclass, field
-from typing import IO, Any
+from typing import IO, Any, TypeVar
 
+import anyio.to_thread
 from sqlalchemy.orm import Session
-from starlette.concurrency import run_in_threadpool
-from starlette.requests import Request
 
-from service.api.bodies import decode_json_object
-from service.api.problems import ProblemError
 from service.batches.documents import DocumentInvalid, InputDocument, parse_document
+from service.batches.errors import Refused
 from service.batches.lines import LineTooLong, numbered_lines
-from service.batches.webhook_urls import WebhookUrlRefused, check_url
+from service.batches.repository import DocumentSink, find_by_idempotency_key, start_batch
+from service.batches.webhooks.urls import WebhookUrlRefused, check_url
 from service.config import Settings
 from service.engine import OccurrenceFinder
-from service.store.batches import DocumentSink, start_batch
 from service.store.clock import database_now
 from service.store.models import Batch
 from service.tagging.engines import shared_engines
@@ -43,6 +44,43 @@ HEADER_MEMBERS = frozenset({"inventory", "callback_url", "options"})
 OPTION_DEFAULTS: dict[str, Any] = {"rationale": True}
 GROUP_DOCUMENTS = 200
 GROUP_BYTES = 1_000_000
+T = TypeVar("T")
+
+
+async def run_in_threadpool(func: Callable[..., T], *args: Any) -> T:
+    """Database work off the event loop, so no request waits on another's lock."""
+    return await anyio.to_thread.run_sync(functools.partial(func, *args))
+
+
+@dataclass(frozen=True)
+class Submission:
+    """What the API hands the intake: the body and the few request facts it needs."""
+
+    body: AsyncIterator[bytes]
+    media: str
+    query: Sequence[tuple[str, str]]
+    batch_url: Callable[[str], str]  # batch id -> its absolute URL (the webhook's links)
+
+
+def _json_object(raw: bytes | bytearray, expected: str) -> dict[str, Any]:
+    """`raw` as a JSON object: malformed if not UTF-8 or JSON, invalid if not an object."""
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise Refused(
+            "malformed", f"the body is not UTF-8 (byte {exc.start})", kind="bad-encoding"
+        ) from None
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise Refused(
+            "malformed",
+            f"the body is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}",
+            kind="malformed-json",
+        ) from None
+    if not isinstance(data, dict):
+        raise Refused("invalid", f"the body must be {expected}")
+    return data
 
 
 def parse_options(value: Any) -> dict[str, Any]:
@@ -50,12 +88,12 @@ def parse_options(value: Any) -> dict[str, Any]:
     if value is None:
         return dict(OPTION_DEFAULTS)
     if not isinstance(value, dict):
-        raise ProblemError(422, "'options' must be an object")
+        raise Refused("invalid", "'options' must be an object")
     unknown = sorted(set(value) - set(OPTION_DEFAULTS))
     if unknown:
-        raise ProblemError(422, f"unknown option(s): {', '.join(unknown)}; known: rationale")
+        raise Refused("invalid", f"unknown option(s): {', '.join(unknown)}; known: rationale")
     if not isinstance(value.get("rationale", True), bool):
-        raise ProblemError(422, "option 'rationale' must be true or false")
+        raise Refused("invalid", "option 'rationale' must be true or false")
     return {**OPTION_DEFAULTS, **value}
 
 
@@ -64,19 +102,19 @@ def check_callback(url: Any, settings: Settings) -> str | None:
     if url is None:
         return None
     if not isinstance(url, str):
-        raise ProblemError(422, "'callback_url' must be a string")
+        raise Refused("invalid", "'callback_url' must be a string")
     try:
         check_url(url, allow_private=settings.allow_private_webhooks)
     except WebhookUrlRefused as exc:
-        raise ProblemError(422, str(exc), kind="callback-url-refused") from None
+        raise Refused("invalid", str(exc), kind="callback-url-refused") from None
     return url
 
 
-def _document_problem(exc: DocumentInvalid, where: dict[str, Any]) -> ProblemError:
+def _document_problem(exc: DocumentInvalid, where: dict[str, Any]) -> Refused:
     place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
     if exc.limit is not None:
-        return ProblemError(413, f"{place}: {exc}", limit=exc.limit, **where)
-    return ProblemError(422, f"{place}: {exc}", kind="invalid-document", **where)
+        return Refused("too_large", f"{place}: {exc}", limit=exc.limit, **where)
+    return Refused("invalid", f"{place}: {exc}", kind="invalid-document", **where)
 
 
 @dataclass
@@ -88,6 +126,22 @@ class Header:
 
 class IdempotencyClash(Exception):
     """Another submission with the same key was stored while this one was read."""
+
+
+def check_idempotency_key(value: str | None) -> str | None:
+    if value is None:
+        return None
+    if not 1 <= len(value) <= 200 or not value.isprintable() or not value.isascii():
+        raise Refused("invalid", "Idempotency-Key must be 1 to 200 printable ASCII characters")
+    return value
+
+
+@dataclass(frozen=True)
+class Submitted:
+    """The stored batch, and whether it is an earlier submission replayed (same key, body)."""
+
+    batch: Batch
+    replayed: bool
 
 
 SPOOL_IN_MEMORY = 8 * 1024 * 1024
@@ -106,7 +160,7 @@ class Intake:
 
     def __init__(
         self,
-        request: Request,
+        submission: Submission,
         session: Session,
         settings: Settings,
         *,
@@ -114,17 +168,18 @@ class Intake:
         team_id: int,
         idempotency_key: str | None,
     ) -> None:
-        self.request = request
+        self.submission = submission
+        self.query = dict(submission.query)
         self.session = session
         self.settings = settings
         self.key_id = key_id
         self.team_id = team_id
         self.idempotency_key = idempotency_key
-        self.media = request.headers.get("content-type", "").split(";")[0].strip().lower()
+        self.media = submission.media.split(";")[0].strip().lower()
         self.digest = hashlib.sha256()
-        query = sorted((k, v) for k, v in request.query_params.multi_items() if k in HEADER_MEMBERS)
+        query = sorted((k, v) for k, v in submission.query if k in HEADER_MEMBERS)
         self.digest.update(f"{self.media}\n{json.dumps(query)}\n".encode())
-        self._chunks = self._hashed(request.stream())
+        self._chunks = self._hashed(submission.body)
         self._seen: dict[str, dict[str, Any]] = {}
         self._group: list[tuple[dict[str, Any], InputDocument]] = []
         self._group_bytes = 0
@@ -153,6 +208,43 @@ class Intake:
         spool.seek(0)
         self._chunks = _read_spool(spool)
 
+    async def submit(self) -> Submitted:
+        """Store the submission in one transaction, or replay the earlier one with the same
+        Idempotency-Key and body; Refused (nothing stored) otherwise."""
+        await self.spool_for_single_writer()
+        key = self.idempotency_key
+        if key is not None:
+            existing = await run_in_threadpool(self._earlier, key)
+            if existing is not None:
+                return await self._replay(existing)
+        try:
+            batch = await self.read()
+            await run_in_threadpool(self.session.commit)
+        except IdempotencyClash:
+            existing = await run_in_threadpool(self._earlier, key or "")
+            if existing is None:
+                raise Refused(
+                    "conflict", "a submission with this Idempotency-Key is in progress"
+                ) from None
+            return await self._replay(existing)
+        except BaseException:
+            await run_in_threadpool(self.session.rollback)
+            raise
+        return Submitted(batch, replayed=False)
+
+    def _earlier(self, key: str) -> Batch | None:
+        return find_by_idempotency_key(self.session, self.team_id, self.key_id, key)
+
+    async def _replay(self, existing: Batch) -> Submitted:
+        if await self.drain() != existing.request_digest:
+            raise Refused(
+                "conflict",
+                "this Idempotency-Key was used with a different request body",
+                kind="idempotency-key-reused",
+                batch_id=existing.id,
+            )
+        return Submitted(existing, replayed=True)
+
     async def drain(self) -> str:
         """Read (and hash) whatever is left of the body; the request digest."""
         async for _ in self._chunks:
@@ -166,26 +258,28 @@ class Intake:
             return await self._read_ndjson()
         if self.media in ("application/json", ""):
             return await self._read_json()
-        raise ProblemError(415, f"send application/json or application/x-ndjson, not {self.media}")
+        raise Refused(
+            "unsupported_media", f"send application/json or application/x-ndjson, not {self.media}"
+        )
 
     async def _read_json(self) -> Batch:
         raw = bytearray()
         async for chunk in self._chunks:
             raw += chunk
-        data = decode_json_object(raw, "an object with 'inventory' and 'documents'")
+        data = _json_object(raw, "an object with 'inventory' and 'documents'")
         del raw
         unknown = sorted(set(data) - HEADER_MEMBERS - {"documents"})
         if unknown:
-            raise ProblemError(422, f"unknown member(s): {', '.join(unknown)}")
+            raise Refused("invalid", f"unknown member(s): {', '.join(unknown)}")
         documents = data.get("documents")
         if not isinstance(documents, list):
-            raise ProblemError(422, "'documents' must be a list of documents")
+            raise Refused("invalid", "'documents' must be a list of documents")
         if not documents:
-            raise ProblemError(422, "'documents' is empty; a batch needs at least one document")
+            raise Refused("invalid", "'documents' is empty; a batch needs at least one document")
         limit = self.settings.max_documents_per_batch
         if len(documents) > limit:
-            raise ProblemError(
-                413,
+            raise Refused(
+                "too_large",
                 f"{len(documents)} documents; a batch may have at most {limit}",
                 limit="max_documents_per_batch",
             )
@@ -196,7 +290,7 @@ class Intake:
         return await self._finish()
 
     async def _read_ndjson(self) -> Batch:
-        query = self.request.query_params
+        query = self.query
         if "inventory" in query:
             from_query = {
                 "inventory": query["inventory"],
@@ -211,23 +305,23 @@ class Intake:
                 try:
                     item = json.loads(line.decode("utf-8"))
                 except UnicodeDecodeError as exc:
-                    raise ProblemError(
-                        400,
+                    raise Refused(
+                        "malformed",
                         f"line {number} is not UTF-8 (byte {exc.start} of the line)",
                         kind="bad-encoding",
                         line=number,
                     ) from None
                 except json.JSONDecodeError as exc:
-                    raise ProblemError(
-                        400,
+                    raise Refused(
+                        "malformed",
                         f"line {number} is not valid JSON: {exc.msg} at column {exc.colno}",
                         kind="malformed-ndjson",
                         line=number,
                     ) from None
                 if self.batch is None:
                     if not isinstance(item, dict) or "inventory" not in item:
-                        raise ProblemError(
-                            422,
+                        raise Refused(
+                            "invalid",
                             f"line {number}: the first line must be a header object "
                             '{"inventory": ...} unless ?inventory= is given',
                             kind="missing-header",
@@ -237,9 +331,11 @@ class Intake:
                     continue
                 await self._take(item, {"line": number})
         except LineTooLong as exc:
-            raise ProblemError(413, str(exc), limit="max_document_bytes", line=exc.number) from None
+            raise Refused(
+                "too_large", str(exc), limit="max_document_bytes", line=exc.number
+            ) from None
         if self.batch is None:
-            raise ProblemError(422, "the body has no header and no documents")
+            raise Refused("invalid", "the body has no header and no documents")
         return await self._finish()
 
     # -- shared steps -------------------------------------------------------------------------
@@ -252,10 +348,10 @@ class Intake:
     ) -> Header:
         unknown = sorted(set(data) - HEADER_MEMBERS - set(also))
         if unknown:
-            raise ProblemError(422, f"unknown header member(s): {', '.join(unknown)}", **where)
+            raise Refused("invalid", f"unknown header member(s): {', '.join(unknown)}", **where)
         inventory = data.get("inventory")
         if not isinstance(inventory, str) or not inventory:
-            raise ProblemError(422, "'inventory' must name an inventory", **where)
+            raise Refused("invalid", "'inventory' must name an inventory", **where)
         return Header(
             inventory=inventory,
             callback_url=data.get("callback_url"),
@@ -279,7 +375,7 @@ class Intake:
                 options=header.options,
                 callback_url=callback,
                 idempotency_key=self.idempotency_key,
-                base_url=str(self.request.base_url).rstrip("/"),
+                batch_url=self.submission.batch_url,
             )
         except IntegrityError:
             self.session.rollback()
@@ -303,8 +399,8 @@ class Intake:
         if first is not None:
             earlier = f"line {first['line']}" if "line" in first else f"document {first['index']}"
             place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
-            raise ProblemError(
-                422,
+            raise Refused(
+                "invalid",
                 f"{place}: document id {document.doc_id!r} was already used at {earlier}",
                 kind="duplicate-document-id",
                 document_id=document.doc_id,
@@ -313,8 +409,8 @@ class Intake:
             )
         limit = self.settings.max_documents_per_batch
         if len(self._seen) >= limit:
-            raise ProblemError(
-                413,
+            raise Refused(
+                "too_large",
                 f"more than {limit} documents; a batch may have at most {limit}",
                 limit="max_documents_per_batch",
                 **where,
@@ -337,8 +433,8 @@ class Intake:
             occurrences = len(self._finder.find(document.to_engine()))
             if occurrences > limit:
                 place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
-                raise ProblemError(
-                    422,
+                raise Refused(
+                    "invalid",
                     f"{place}: document {document.doc_id!r} has {occurrences} occurrences; "
                     f"the limit is {limit}",
                     limit="max_occurrences_per_document",
@@ -349,7 +445,7 @@ class Intake:
     async def _finish(self) -> Batch:
         await self._store_group()
         if self._sink is None or self._sink.count == 0:
-            raise ProblemError(422, "the batch has no documents; send at least one")
+            raise Refused("invalid", "the batch has no documents; send at least one")
         digest = self.digest.hexdigest()
         sink = self._sink
 

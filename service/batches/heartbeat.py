@@ -8,7 +8,7 @@ from types import TracebackType
 
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.store.leases import Claim, extend_lease
+from service.batches.leases import Claim, extend_lease
 
 log = logging.getLogger(__name__)
 

@@ -21,7 +21,8 @@ from sqlalchemy.orm import Session
 
 from service.batches.summaries import SenseTally, summarise
 from service.store.errors import NotFound
-from service.store.models import Batch, BatchDocument, BatchResult
+from service.store.inventories import version_document
+from service.store.models import Batch, BatchDocument, BatchResult, Inventory
 
 
 @dataclass(frozen=True)
@@ -156,3 +157,9 @@ def sense_tags(document: Mapping[str, Any]) -> dict[str, list[str]]:
         for term in document.get("terms", ())
         for sense in term.get("senses", ())
     }
+
+
+def batch_tags(session: Session, batch: Batch) -> dict[str, list[str]]:
+    """sense id -> tags, from the inventory version the batch is pinned to."""
+    inventory = session.get_one(Inventory, batch.inventory_id)
+    return sense_tags(version_document(session, inventory, batch.inventory_version))

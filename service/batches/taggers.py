@@ -12,9 +12,9 @@ from typing import Protocol
 
 from sqlalchemy.orm import Session, sessionmaker
 
+from service.batches.leases import Claim
 from service.config import Settings, resolve_model_dir
 from service.engine import Document, DocumentResult
-from service.store.leases import Claim
 from service.tagging.engines import EngineCache, Pin, PinnedEngine, shared_engines, tag_pinned
 
 

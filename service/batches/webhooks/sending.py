@@ -14,11 +14,16 @@ import time
 from dataclasses import dataclass
 
 import httpx
+from sqlalchemy.orm import Session, sessionmaker
 
 from service import __version__
-from service.batches.signatures import SIGNATURE_HEADER, sign
-from service.batches.webhook_urls import WebhookUrlRefused, check_url
-from service.store.webhook_deliveries import DueWebhook
+from service.batches.webhooks.deliveries import (
+    DueWebhook,
+    claim_due_webhook,
+    record_webhook_attempt,
+)
+from service.batches.webhooks.signatures import SIGNATURE_HEADER, sign
+from service.batches.webhooks.urls import WebhookUrlRefused, check_url
 
 
 @dataclass(frozen=True)
@@ -104,3 +109,31 @@ def deliver(
     if 200 <= response.status_code < 300:
         return result(True, response.status_code, None)
     return result(False, response.status_code, f"the receiver answered {response.status_code}")
+
+
+def deliver_next(
+    sessions: sessionmaker[Session],
+    policy: WebhookPolicy,
+    *,
+    timeout: float,
+    allow_private: bool,
+) -> tuple[DueWebhook, str] | None:
+    """Claim the oldest due delivery, POST it, record the attempt; the delivery and its
+    outcome (delivered, retry, failed), or None when nothing is due."""
+    with sessions.begin() as session:
+        due = claim_due_webhook(session, claim_seconds=timeout * 3 + 5)
+    if due is None:
+        return None
+    result = deliver(due, allow_private=allow_private, timeout=timeout)
+    retry_in = None if result.permanent else policy.retry_in(due.attempt)
+    with sessions.begin() as session:
+        record_webhook_attempt(
+            session,
+            due,
+            status_code=result.status_code,
+            error=result.error,
+            duration_seconds=result.duration_seconds,
+            delivered=result.delivered,
+            retry_in=retry_in,
+        )
+    return due, "delivered" if result.delivered else ("retry" if retry_in else "failed")

@@ -1,0 +1,1 @@
+"""A batch's completion notice: callback URL checks, signatures, delivery rows, the POST."""
