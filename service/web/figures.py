@@ -6,6 +6,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 WIDTH, HEIGHT, PAD = 520, 160, 34
+MAX_BAR_STEP = 48  # one day's slot at most, so a young inventory's bar stays a bar
 
 
 @dataclass(frozen=True)
@@ -34,12 +35,12 @@ def bar_chart(days: Sequence[tuple[str, int]]) -> Chart:
     days = list(days)[-30:]
     top = max((n for _, n in days), default=0) or 1
     inner_w, inner_h = WIDTH - 2 * PAD, HEIGHT - 2 * PAD
-    step = inner_w / max(1, len(days))
+    step = min(inner_w / max(1, len(days)), MAX_BAR_STEP)
     bars = [
         Bar(
-            x=PAD + i * step + step * 0.1,
+            x=PAD + i * step + step * 0.15,
             y=PAD + inner_h * (1 - n / top),
-            width=step * 0.8,
+            width=step * 0.7,
             height=inner_h * n / top,
             label=day,
             value=n,

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import socket
 import subprocess
 import sys
@@ -120,6 +121,7 @@ def test_demo_runs_the_main_job_and_reports(tiny_corpus, tmp_path, capsys):
     assert "batch " in printed and ": done, 9 occurrences in 8 documents" in printed
     assert "held-out labels:" in printed
     assert "prototypes ready in" in captured.err
+    assert re.search(r"review queue: http://127\.0\.0\.1:\d+/review .*sign in with: ws_", printed)
     summary = json.loads((output / "report" / "summary.json").read_text())
     _, held_out = split_labels(tiny_corpus / "labeled.jsonl")
     assert summary["n"] == len(held_out)
