@@ -160,6 +160,10 @@ def _empty_tables(url: str) -> None:
     with engine.begin() as conn:
         names = ", ".join(f'"{t.name}"' for t in Base.metadata.sorted_tables)
         conn.execute(text(f"TRUNCATE {names} RESTART IDENTITY CASCADE"))
+    # Ids restart, so engines cached from the previous test's rows must not be reused.
+    from service.tagging.engines import shared_engines
+
+    shared_engines().forget_database(url)
 
 
 @pytest.fixture(params=["sqlite", pytest.param("postgres", marks=pytest.mark.postgres)])

@@ -8,6 +8,7 @@ that the rest of the command line stays quick to start.
 from __future__ import annotations
 
 import argparse
+import functools
 import json
 import math
 import sys
@@ -149,7 +150,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
                 with service_runs.postgres_database(args.postgres_url) as url:
                     result = service_runs.measure(url, corpus.inventory_path, corpus.raw,
                                                   warmup, workers,
-                                                  lambda name=name: bar(name, occurrences))
+                                                  functools.partial(bar, name, occurrences))
                 figures[key] = round(result.per_second, 1)
                 figures[key.replace("_per_s", "_per_cpu_s")] = round(result.per_cpu_second, 1)
                 peaks.append(result.peak_rss_mb)

@@ -147,7 +147,7 @@ class ContextEncoder:
             weights, local_files_only=True, attn_implementation="eager"
         ).eval()
         if quantize:  # int8 weights for every nn.Linear, activations quantised per batch
-            self.model = torch.ao.quantization.quantize_dynamic(
+            self.model = torch.ao.quantization.quantize_dynamic(  # type: ignore[no-untyped-call]
                 self.model, {torch.nn.Linear}, dtype=torch.qint8
             )
         self.quantized = quantize

@@ -130,7 +130,8 @@ def hub_penalty(prototypes: np.ndarray, neighbourhood: np.ndarray, k: int) -> np
         return np.zeros(len(prototypes), np.float64)
     sims = np.asarray(prototypes, np.float64) @ np.asarray(neighbourhood, np.float64).T
     top = min(k, sims.shape[1])
-    return np.sort(sims, axis=1)[:, ::-1][:, :top].mean(axis=1)
+    penalty: np.ndarray = np.sort(sims, axis=1)[:, ::-1][:, :top].mean(axis=1)
+    return penalty
 
 
 @dataclass(frozen=True)
@@ -431,7 +432,8 @@ class PrototypeBook:
 
     def scores(self, term: str, similarities: np.ndarray) -> np.ndarray:
         """Similarity rows (n, senses) of `term` turned into scores: minus the hub penalty."""
-        return np.asarray(similarities, np.float64) - self.penalty(term)
+        scored: np.ndarray = np.asarray(similarities, np.float64) - self.penalty(term)
+        return scored
 
     def contextual_items(self, term: str) -> tuple[np.ndarray, list[str], list[ItemKind]]:
         """(vectors, sense ids, kinds) of the term's labeled occurrences: example

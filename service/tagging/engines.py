@@ -250,6 +250,17 @@ class EngineCache:
                 evicted.retired = True
             return fresh
 
+    def forget_database(self, database_url: str) -> None:
+        """Drop everything cached from `database_url`: its rows were emptied or restored, so
+        row ids and evidence watermarks may be reused for other content."""
+        with self._lock:
+            for key in [key for key in self._engines if key[0][0] == database_url]:
+                self._engines.pop(key).retired = True
+            for spec_key in [k for k in self._specs if k[0] == database_url]:
+                del self._specs[spec_key]
+            for finder_key in [k for k in self._finders if k[0] == database_url]:
+                del self._finders[finder_key]
+
     def forget(self, inventory_id: int) -> None:
         """Drop every engine of inventory row `inventory_id`: evidence was taken away (a
         review undone), and prototypes only grow, so the next request must build afresh."""
