@@ -24,6 +24,7 @@ import subprocess
 import sys
 from collections.abc import Sequence
 from dataclasses import dataclass
+from itertools import islice
 from pathlib import Path
 
 import numpy as np
@@ -170,18 +171,17 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--learning-rate", type=float, default=1e-3)
     parser.add_argument("--min-count", type=int, default=5,
                         help="lemmas seen fewer times in training are left out")
-    parser.add_argument("--train-limit", type=int, help="first N training instances only")
+    parser.add_argument("--train-sentences", type=int, help="read the first N sentences only")
     parser.add_argument("--float32", action="store_true", help="store float32 weights")
     args = parser.parse_args(argv)
 
     reader = open_wordnet()
-    sentences = list(read_corpus(args.semcor, reader, CorpusStats()))
+    sentences = list(islice(read_corpus(args.semcor, reader, CorpusStats()),
+                            args.train_sentences))
     instances = flatten(sentences)
     raw = ContextEncoder(batch_size=64)
     vectors, _ = encode_instances(raw, instances)  # the benchmark's cached SemCor vectors
     keep = [n for n, i in enumerate(instances) if not is_held_out(i.doc, 0.1)]
-    if args.train_limit is not None:
-        keep = keep[: args.train_limit]
     items = CachingEncoder(raw)
     data = build_training_set([instances[n] for n in keep], vectors[keep], reader, items,
                               args.min_count)

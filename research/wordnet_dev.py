@@ -3,8 +3,9 @@
 SemCor is split by document (service/evaluation/splits.is_held_out(doc, 0.1):
 35 documents); the engine is built exactly as `whichsense benchmark wordnet`
 builds it (service/evaluation/benchmark.score_engine) from the other
-documents, with the temperature fitted on the first 1,500 dev instances (the
-benchmark's calibration set) and F1 read on the dev instances after them.
+documents. F1 is read on the first 1,500 dev instances (file order; the
+benchmark's calibration set, so their glosses are cached), with the temperature
+fitted on the same instances (one scalar; it matters only with the sense prior).
 SemEval-2013 is never read here. Vectors come from the
 benchmark's cache, so a run only builds prototypes and scores.
 
@@ -56,7 +57,7 @@ def main() -> int:
     dev_mask = np.array([is_held_out(i.doc, 0.1) for i in instances])
     held = np.flatnonzero(dev_mask)
     cal_idx = held[:CALIBRATION]
-    dev_idx = [n for n in held[CALIBRATION:] if instances[n].pos in args.pos][: args.max_dev]
+    dev_idx = [n for n in cal_idx if instances[n].pos in args.pos][: args.max_dev]
     train_idx = np.flatnonzero(~dev_mask)
     fit_idx = train_idx
 

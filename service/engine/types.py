@@ -45,6 +45,7 @@ class InventorySettings:
     review_threshold: float = 0.6
     abstain_threshold: float = 0.25  # RECOMMENDED_ABSTAIN_THRESHOLD, measured
     temperature: float | None = None
+    alignment_head: str | None = None  # a bundled alignment head's id (engine/alignment.py)
 
 
 @dataclass(frozen=True)

@@ -30,7 +30,7 @@ from typing import Any
 import numpy as np
 from nltk.corpus.reader.wordnet import WordNetCorpusReader
 
-from service.engine.alignment import AlignedEncoder, AlignmentHead
+from service.engine.alignment import AlignmentHead
 from service.engine.assignment import DEFAULT_TEMPERATURE
 from service.engine.calibration import (
     confidences_and_hits,
@@ -227,7 +227,7 @@ def make_engine(
     """The one place the benchmark builds the engine: the same public constructor `tag`, the
     API and the worker use (the engine factory of service/tagging can replace this line)."""
     return Disambiguator(encoder, inventory, evidence, evidence_vectors=evidence_vectors,
-                         sense_prior=options.sense_prior,
+                         sense_prior=options.sense_prior, alignment_head=options.head,
                          consistency_weight=options.consistency_weight)
 
 
@@ -262,12 +262,7 @@ def engine_decisions(
 ) -> EngineDecisions:
     """Build the shipped engine for the lemmas of `test` (one WordNet inventory per part of
     speech, every sense of each lemma, training instances of those lemmas as evidence) and
-    decide every test instance with it, from precomputed (unaligned) span vectors."""
-    if options.head is not None:
-        encoder = AlignedEncoder(encoder, options.head)
-        train_vectors = options.head.context(train_vectors) if len(train_vectors) else \
-            train_vectors
-        test_vectors = options.head.context(test_vectors) if len(test_vectors) else test_vectors
+    decide every test instance with it, from span vectors precomputed by `encoder`."""
     settings = InventorySettings(abstain_threshold=0.0, temperature=temperature)
     n = len(test)
     decisions = EngineDecisions([[] for _ in range(n)], [np.zeros(0)] * n, [np.zeros(0)] * n,
@@ -291,7 +286,7 @@ def engine_decisions(
         queries = [SpanQuery(test[i].text, test[i].start, test[i].end, _term(test[i].lemma),
                              document_id=test[i].doc) for i in answered]
         vectors = test_vectors[answered]
-        rows = engine.similarities(queries, vectors)
+        rows = engine.similarities(queries, engine.align(vectors))
         results = engine.classify_vectors(queries, vectors)
         for i, query, row, result in zip(answered, queries, rows, results, strict=True):
             keys = list(engine.prototypes.senses(query.term))
@@ -301,10 +296,8 @@ def engine_decisions(
             decisions.log_priors[i] = (engine.prototypes.log_prior(query.term)
                                        if options.sense_prior else np.zeros(len(keys)))
             decisions.probabilities[i] = np.array([by_id[k] for k in keys])
-    if hasattr(encoder, "save"):
+    if isinstance(encoder, CachingEncoder):
         encoder.save()
-    elif hasattr(getattr(encoder, "encoder", None), "save"):
-        encoder.encoder.save()
     return decisions
 
 

@@ -73,3 +73,28 @@ def test_bundled_heads_verify() -> None:
         head = load_head(path)
         assert head.header()["training"]["data_sha256"]
         assert head.dimension == 384
+
+
+def test_the_engine_applies_a_head_everywhere(encoder, bass_inventory) -> None:  # type: ignore[no-untyped-def]
+    from dataclasses import replace
+
+    from service.engine import Disambiguator, Document
+    from service.engine.alignment import encoder_family
+
+    dim = encoder.dimension
+    zero = AlignmentHead("zero", 1, encoder_family(encoder.model_id),
+                         np.zeros((dim, dim), np.float16), np.zeros((dim, dim), np.float16), {})
+    plain = Disambiguator(encoder, bass_inventory)
+    aligned = Disambiguator(encoder, bass_inventory, alignment_head=zero)
+    assert aligned.prototypes.model_id.endswith("+zero.v1")
+    text = "He plays bass in a jazz band and tunes the strings before every set."
+    [first], [second] = (list(engine.tag([Document.from_text("d", text)]))[0].occurrences
+                         for engine in (plain, aligned))
+    # a zero residual is the identity map: same sense, same similarities
+    assert first.sense_id == second.sense_id
+    assert first.candidates[0].similarity == pytest.approx(second.candidates[0].similarity,
+                                                           abs=1e-4)
+    unknown = replace(bass_inventory, settings=replace(bass_inventory.settings,
+                                                       alignment_head="no-such-head"))
+    with pytest.raises(AlignmentHeadError, match="no bundled alignment head"):
+        Disambiguator(encoder, unknown)
