@@ -169,7 +169,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--tau", type=float, default=0.05)
     parser.add_argument("--weight-decay", type=float, default=1e-4)
     parser.add_argument("--learning-rate", type=float, default=1e-3)
-    parser.add_argument("--min-count", type=int, default=5,
+    parser.add_argument("--pos", default="nv", help="parts of speech trained on")
+    parser.add_argument("--min-count", type=int, default=10,
                         help="lemmas seen fewer times in training are left out")
     parser.add_argument("--train-sentences", type=int, help="read the first N sentences only")
     parser.add_argument("--float32", action="store_true", help="store float32 weights")
@@ -181,7 +182,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     instances = flatten(sentences)
     raw = ContextEncoder(batch_size=64)
     vectors, _ = encode_instances(raw, instances)  # the benchmark's cached SemCor vectors
-    keep = [n for n, i in enumerate(instances) if not is_held_out(i.doc, 0.1)]
+    keep = [n for n, i in enumerate(instances)
+            if not is_held_out(i.doc, 0.1) and i.pos in args.pos]
     items = CachingEncoder(raw)
     data = build_training_set([instances[n] for n in keep], vectors[keep], reader, items,
                               args.min_count)
@@ -199,6 +201,7 @@ def main(argv: Sequence[str] | None = None) -> int:
                   "occurrences": len(data.candidates), "glosses": len(data.glosses),
                   "epochs": args.epochs, "tau": args.tau, "weight_decay": args.weight_decay,
                   "learning_rate": args.learning_rate, "min_count": args.min_count,
+                  "pos": args.pos,
                   "losses": [round(x, 4) for x in losses]})
     args.out.parent.mkdir(parents=True, exist_ok=True)
     head.save(args.out)
