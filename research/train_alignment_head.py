@@ -98,7 +98,7 @@ def train_head(
             optimiser.zero_grad()
             (loss + penalty).backward()
             optimiser.step()
-            total += float(loss)
+            total += float(loss.detach())
             batches += 1
         losses.append(total / max(batches, 1))
         if log:

@@ -72,7 +72,8 @@ def main() -> int:
     heads = [None, *(load_head(path, raw.model_id) for path in args.head)]
     out = {"n": len(dev_idx), "mfs": f1_table(dev[0], mfs)}
     for head in heads:
-        options = EngineOptions(sense_prior=not args.no_prior, head=head)
+        prior = "" if args.no_prior else EngineOptions.sense_prior_pos
+        options = EngineOptions(sense_prior_pos=prior, head=head)
         run = score_engine(items, reader, pick(fit_idx), pick(cal_idx), pick(train_idx), dev,
                            options)
         table = f1_table(dev[0], run["decisions"].best())

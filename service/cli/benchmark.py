@@ -54,7 +54,8 @@ def _config(args: argparse.Namespace, model_id: str) -> BenchmarkConfig:
     if args.head:
         head = (load_head(args.head, model_id) if Path(args.head).is_file()
                 else bundled_head(args.head, model_id))
-    engine = EngineOptions(sense_prior=not args.no_sense_prior, head=head)
+    prior = "" if args.no_sense_prior else EngineOptions.sense_prior_pos
+    engine = EngineOptions(sense_prior_pos=prior, head=head)
     return BenchmarkConfig(layers=layers, engine=engine)
 
 
