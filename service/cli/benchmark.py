@@ -12,8 +12,6 @@ if TYPE_CHECKING:
     from service.config import Settings
     from service.evaluation.benchmark import BenchmarkConfig
 
-# Defaults belong to BenchmarkConfig and PrototypeRecipe; options left out keep them.
-
 
 def add_parser(commands: argparse._SubParsersAction) -> None:
     parser = commands.add_parser("benchmark", help="measure disambiguation on annotated text")
@@ -35,35 +33,39 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
                          help="end with one line holding every figure as a JSON object")
     wordnet.add_argument("--layers",
                          help="hidden layers to pool, e.g. 6 or 3,4,5,6 (default: the last)")
-    wordnet.add_argument("--gloss-template", help="a named gloss template")
-    wordnet.add_argument("--evidence-prior", type=float,
-                         help="k in the corpus weight n/(n+k) of a sense seen n times")
-    wordnet.add_argument("--prior-weight", type=float,
-                         help="weight of the log sense-frequency prior")
-    wordnet.add_argument("--fallback", choices=("relations", "gloss"),
-                         help="what stands in for senses the training file never shows")
+    wordnet.add_argument("--no-sense-prior", action="store_true",
+                         help="turn off the engine's sense prior from evidence counts")
+    wordnet.add_argument("--head", metavar="ID_OR_FILE",
+                         help="an alignment head: a bundled head id or a head file "
+                         "(default: none)")
     wordnet.add_argument("--no-cache", action="store_true", help="do not read or write the cache")
     wordnet.add_argument("--no-variants", action="store_true",
-                         help="skip the simpler recipes scored for comparison")
+                         help="skip the engine variants scored for comparison")
+    wordnet.add_argument("--no-previous", action="store_true",
+                         help="skip the previous twin scorer's F1")
     wordnet.set_defaults(func=run)
 
 
-def _config(args: argparse.Namespace) -> BenchmarkConfig:
+def _layers(args: argparse.Namespace) -> tuple[int, ...]:
     from service.evaluation.benchmark import BenchmarkConfig
-    from service.wordnet.glosses import GLOSS_TEMPLATES
-    from service.wordnet.prototypes import PrototypeRecipe
 
-    def given(**options: Any) -> dict[str, Any]:
-        return {name: value for name, value in options.items() if value is not None}
+    if not args.layers:
+        return BenchmarkConfig().layers
+    return tuple(int(part) for part in str(args.layers).split(",") if part.strip())
 
-    if args.gloss_template is not None and args.gloss_template not in GLOSS_TEMPLATES:
-        raise ValueError(f"--gloss-template: choose from {', '.join(sorted(GLOSS_TEMPLATES))}")
-    layers = (tuple(int(part) for part in str(args.layers).split(",") if part.strip())
-              if args.layers else None)
-    recipe = PrototypeRecipe(**given(evidence_prior=args.evidence_prior,
-                                     prior_weight=args.prior_weight, fallback=args.fallback))
-    return BenchmarkConfig(**given(layers=layers, gloss_template=args.gloss_template),
-                           recipe=recipe)
+
+def _config(args: argparse.Namespace, model_id: str) -> BenchmarkConfig:
+    from service.engine.alignment import bundled_head, load_head
+    from service.evaluation.benchmark import BenchmarkConfig, EngineOptions
+
+    layers = _layers(args)
+    head = None
+    if args.head:
+        head = (load_head(args.head, model_id) if Path(args.head).is_file()
+                else bundled_head(args.head, model_id))
+    prior = "" if args.no_sense_prior else EngineOptions.sense_prior_pos
+    engine = EngineOptions(sense_prior_pos=prior, head=head)
+    return BenchmarkConfig(layers=layers, engine=engine)
 
 
 def format_table(result: dict[str, Any]) -> str:
@@ -72,7 +74,9 @@ def format_table(result: dict[str, Any]) -> str:
         f"test {result['test_file']} ({result['n']} instances), "
         f"train {result['train_file']}",
         f"{'':24}{'F1':>8}",
-        f"{'whichsense':24}{result['f1']:8.2f}",
+        f"{'whichsense (engine)':24}{result['f1']:8.2f}",
+        *([f"{'previous twin scorer':24}{result['previous_engine_f1']:8.2f}"]
+          if "previous_engine_f1" in result else []),
         f"{'MFS in training file':24}{result['mfs_f1']:8.2f}",
         f"{'WordNet first sense':24}{result['first_sense_f1']:8.2f}",
         "per part of speech (ours / MFS, n): " + ", ".join(
@@ -80,8 +84,7 @@ def format_table(result: dict[str, Any]) -> str:
             f"({result['per_pos_n'][pos]})" for pos, f1 in result["per_pos"].items()),
         f"coverage {result['coverage']:.4f}; temperature {result['temperature']:.4f} "
         f"(fitted on {result['calibration_instances']} held-out training instances, "
-        f"F1 there {result['held_out_f1']:.2f}); ECE {result['ece']} "
-        f"(at the engine's default temperature: {result['ece_at_default_temperature']})",
+        f"F1 there {result['held_out_f1']:.2f}); ECE {result['ece']}",
     ]
     for target, point in result["auto_share_at"].items():
         share = (f"{point['share']:.1%} assigned automatically (threshold "
@@ -105,23 +108,28 @@ def format_table(result: dict[str, Any]) -> str:
 
 def run(args: argparse.Namespace, settings: Settings) -> int:
     from service.config import resolve_model_dir
-    from service.engine import ContextEncoder
+    from service.engine import ContextEncoder, EngineError
     from service.engine.lexicon import open_wordnet
-    from service.evaluation.benchmark import run_benchmark
+    from service.evaluation.benchmark import BenchmarkConfig, run_benchmark
 
     for path in (args.train, args.test):
         if not path.is_file():
             print(f"whichsense: no such file: {path}", file=sys.stderr)
             return 2
     print("whichsense benchmark: loading the model and WordNet ...", file=sys.stderr, flush=True)
-    config = _config(args)
-    encoder = ContextEncoder(resolve_model_dir(settings), layers=config.layers,
-                             batch_size=config.batch_size, num_threads=settings.torch_threads)
+    encoder = ContextEncoder(resolve_model_dir(settings), layers=_layers(args),
+                             batch_size=BenchmarkConfig.batch_size,
+                             num_threads=settings.torch_threads)
+    try:
+        config = _config(args, encoder.model_id)
+    except EngineError as error:
+        print(f"whichsense: {error}", file=sys.stderr)
+        return 2
     result = run_benchmark(
         args.train, args.test, config, reader=open_wordnet(cache_dir=settings.cache_dir),
         encoder=encoder, limit=args.limit, train_limit=args.train_limit,
         cache_dir=None if args.no_cache else settings.cache_dir,
-        variants=not args.no_variants,
+        variants=not args.no_variants, previous=not args.no_previous,
         log=lambda message: print(message, file=sys.stderr, flush=True),
     )
     print(format_table(result))

@@ -23,6 +23,7 @@ from itertools import islice
 
 import numpy as np
 
+from .alignment import AlignedEncoder, AlignmentHead, bundled_head
 from .assignment import Assignment, Candidate, assign
 from .consistency import DEFAULT_CONSISTENCY_WEIGHT, share_within_documents
 from .encoder import ContextEncoder, SpanEncoding
@@ -139,8 +140,18 @@ class Disambiguator:
         max_document_chars: int = DEFAULT_MAX_DOCUMENT_CHARS,
         group_size: int = DEFAULT_GROUP_SIZE,
         finder: OccurrenceFinder | None = None,
+        alignment_head: AlignmentHead | None = None,
     ) -> None:
         _validate(inventory)
+        if alignment_head is None and inventory.settings.alignment_head:
+            alignment_head = bundled_head(inventory.settings.alignment_head, encoder.model_id)
+        self.alignment_head = alignment_head
+        if alignment_head is not None:
+            # Everything encoded from here on (glosses, examples, evidence, occurrences,
+            # erasure variants) is aligned; vectors handed in are aligned below.
+            encoder = AlignedEncoder(encoder, alignment_head)  # type: ignore[assignment]
+            if evidence_vectors is not None:
+                evidence_vectors = alignment_head.context(evidence_vectors)
         self.encoder = encoder
         self.inventory = inventory
         self.finder = finder or OccurrenceFinder(inventory)
@@ -236,12 +247,20 @@ class Disambiguator:
     def classify_vectors(
         self, spans: Sequence[SpanQuery], vectors: np.ndarray
     ) -> list[OccurrenceResult]:
-        """Like classify_spans, from span vectors encoded earlier (e.g. cached by
-        `encoder.encode_spans` with this encoder's model_id); no rationale."""
+        """Like classify_spans, from span vectors encoded earlier by the encoder this
+        engine was given (e.g. cached under its model_id); no rationale."""
         self._check_queries(spans)
         if len(vectors) != len(spans):
             raise ValueError("one vector per span")
-        return self._results(spans, [(a, None) for a in self._assign(spans, vectors)])
+        aligned = self.align(vectors)
+        return self._results(spans, [(a, None) for a in self._assign(spans, aligned)])
+
+    def align(self, vectors: np.ndarray) -> np.ndarray:
+        """Span vectors of the given encoder in the space prototypes live in (unchanged
+        without an alignment head)."""
+        if self.alignment_head is None or not len(vectors):
+            return vectors
+        return self.alignment_head.context(vectors)
 
     def _check_queries(self, spans: Sequence[SpanQuery]) -> None:
         for query in spans:

@@ -302,6 +302,10 @@ class PrototypeBook:
         if vectors is None:
             if encoder is None:
                 raise ValueError("an encoder is needed to encode evidence without vectors")
+            if encoder.model_id != self.model_id:
+                raise InventoryError(
+                    f"prototypes were built with {self.model_id}, not {encoder.model_id}"
+                )
             new_vectors = encoder.encode_spans(
                 [(evidence[i].text, evidence[i].start, evidence[i].end) for i in fresh]
             )

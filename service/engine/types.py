@@ -69,6 +69,7 @@ class InventorySettings:
     target_accuracy: float | None = DEFAULT_TARGET_ACCURACY
     target_delta: float = DEFAULT_TARGET_DELTA
     missing_sense_rate: float = DEFAULT_MISSING_SENSE_RATE
+    alignment_head: str | None = None  # a bundled alignment head's id (engine/alignment.py)
 
 
 @dataclass(frozen=True)

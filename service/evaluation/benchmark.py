@@ -1,15 +1,20 @@
 """The WordNet benchmark: train on one sense-annotated file, disambiguate another.
 
-Every test instance is decided among the WordNet senses of its lemma and part
-of speech (service/wordnet/prototypes.py says how senses are scored) and
-scored with the unified framework's F1 (scoring.py), next to two baselines on
-the same data: the training file's most frequent sense and WordNet's first
-sense (baselines.py). Confidences are softmax(scores / T) with T fitted by
-temperature scaling on training documents held out from the prototypes
-(splits.py); the test set then gives ECE and the coverage/accuracy trade-off.
+It measures the shipped engine: the `Disambiguator` that `tag`, the API and the
+worker run, built through its public constructor (`make_engine`). The lemmas
+of the test file become WordNet inventories (one per part of speech, every
+sense of each lemma, service/wordnet/inventory.py), the training file's
+instances of those lemmas become their evidence, and every test instance is
+decided by the engine from its span vector, with document consistency and the
+engine's sense prior. The temperature is fitted on training documents held out
+from the evidence (splits.py), as `whichsense calibrate` fits an inventory's.
+Figures: the unified framework's F1 (scoring.py), next to the training file's
+most frequent sense, WordNet's first sense (baselines.py) and the twin scorer
+the benchmark measured before (service/wordnet/prototypes.py), all on the same
+data; the test set then gives ECE and the coverage/accuracy trade-off.
 
-Any file of the format works. Encoded occurrences and glosses are cached on
-disk, keyed by the exact spans or texts and the encoder's model id.
+Any file of the format works. Encoded occurrences, glosses and examples are
+cached on disk, keyed by the exact spans or texts and the encoder's model id.
 """
 
 from __future__ import annotations
@@ -25,23 +30,34 @@ from typing import Any
 import numpy as np
 from nltk.corpus.reader.wordnet import WordNetCorpusReader
 
-from service.engine.assignment import DEFAULT_TEMPERATURE, softmax
+from service.engine.alignment import AlignmentHead
+from service.engine.assignment import DEFAULT_TEMPERATURE
 from service.engine.calibration import (
     confidences_and_hits,
     expected_calibration_error,
     fit_temperature,
     reliability_bins,
 )
-from service.engine.types import PartOfSpeech
+from service.engine.consistency import DEFAULT_CONSISTENCY_WEIGHT
+from service.engine.disambiguator import Disambiguator, SpanQuery
+from service.engine.types import Evidence, InventorySettings, InventorySpec, PartOfSpeech
 from service.evaluation.baselines import first_sense, most_frequent_sense, training_sense_counts
 from service.evaluation.encoding_cache import cached_array
 from service.evaluation.metrics import coverage_curve, threshold_for_accuracy
 from service.evaluation.scoring import score, score_by_group
 from service.evaluation.splits import development_split
+from service.evaluation.vector_store import CachingEncoder
 from service.wordnet.corpus import CorpusSentence, CorpusStats, read_corpus
 from service.wordnet.glosses import DEFAULT_GLOSS_TEMPLATE, gloss_text
+from service.wordnet.inventory import build_wordnet_inventory
 from service.wordnet.prototypes import CorpusSenseVectors, PrototypeRecipe, SenseScorer
-from service.wordnet.senses import resolve_sense_key, senses_of
+from service.wordnet.senses import (
+    POS_ORDER,
+    index_form,
+    resolve_sense_key,
+    senses_of,
+    surface_form,
+)
 
 Log = Callable[[str], None]
 SPAN_RECIPE = "wordnet-corpus-spans/1"
@@ -49,19 +65,36 @@ GLOSS_RECIPE = "wordnet-gloss-texts/1"
 
 
 @dataclass(frozen=True)
+class EngineOptions:
+    """How the benchmark sets up the shipped engine (all of it engine features)."""
+
+    # The engine's evidence-count prior (Disambiguator sense_prior), for the parts of speech
+    # listed: on SemCor dev it lifts verbs, adjectives and adverbs and costs nouns
+    # (docs/measurements.md).
+    sense_prior_pos: str = "var"
+    head: AlignmentHead | None = None  # an alignment head (service/engine/alignment.py)
+    consistency_weight: float = DEFAULT_CONSISTENCY_WEIGHT
+
+    def to_json(self) -> dict[str, Any]:
+        return {"sense_prior_pos": self.sense_prior_pos,
+                "alignment_head": None if self.head is None else
+                f"{self.head.head_id}.v{self.head.version}",
+                "consistency_weight": self.consistency_weight}
+
+
+@dataclass(frozen=True)
 class BenchmarkConfig:
     layers: tuple[int, ...] = (6,)  # the last layer: best on held-out SemCor
-    gloss_template: str = DEFAULT_GLOSS_TEMPLATE
-    recipe: PrototypeRecipe = field(default_factory=PrototypeRecipe)
+    engine: EngineOptions = field(default_factory=lambda: EngineOptions())
     held_out_share: float = 0.1  # training documents held out to fit the temperature
     held_out_salt: str = ""  # set when the training file is itself what a split left
-    calibration_instances: int = 4000  # at most this many held-out instances are scored
+    calibration_instances: int = 1500  # at most this many held-out instances are scored
     target_accuracies: tuple[float, ...] = (0.9, 0.95)
     batch_size: int = 64
 
     def to_json(self) -> dict[str, Any]:
-        return {"layers": list(self.layers), "gloss_template": self.gloss_template,
-                "recipe": self.recipe.to_json(), "held_out_share": self.held_out_share,
+        return {"layers": list(self.layers), "engine": self.engine.to_json(),
+                "held_out_share": self.held_out_share,
                 "calibration_instances": self.calibration_instances,
                 "held_out_salt": self.held_out_salt}
 
@@ -179,7 +212,7 @@ def decide(
     return Decisions(candidates, scores)
 
 
-def _f1_table(instances: Sequence[Instance], predicted: dict[int, str]) -> dict[str, Any]:
+def f1_table(instances: Sequence[Instance], predicted: dict[int, str]) -> dict[str, Any]:
     gold = {i.instance_id: set(i.gold) for i in instances}
     answers = {instances[n].instance_id: key for n, key in predicted.items()}
     pos = {i.instance_id: i.pos for i in instances}
@@ -188,16 +221,125 @@ def _f1_table(instances: Sequence[Instance], predicted: dict[int, str]) -> dict[
             **{p: s.to_json() for p, s in score_by_group(gold, answers, pos).items()}}
 
 
-def _rows_for_calibration(
-    decisions: Decisions, instances: Sequence[Instance]
-) -> tuple[list[np.ndarray], list[int]]:
-    rows, gold = [], []
-    for keys, s, instance in zip(decisions.candidates, decisions.scores, instances, strict=True):
+# -- the shipped engine --------------------------------------------------------------------
+
+
+def make_engine(
+    encoder: Any, inventory: InventorySpec, evidence: Sequence[Evidence],
+    evidence_vectors: np.ndarray, options: EngineOptions,
+) -> Disambiguator:
+    """The one place the benchmark builds the engine: the same public constructor `tag`, the
+    API and the worker use (the engine factory of service/tagging can replace this line)."""
+    prior = any(term.pos in options.sense_prior_pos for term in inventory.terms)
+    return Disambiguator(encoder, inventory, evidence, evidence_vectors=evidence_vectors,
+                         sense_prior=prior, alignment_head=options.head,
+                         consistency_weight=options.consistency_weight)
+
+
+def _term(lemma: str) -> str:
+    return surface_form(index_form(lemma))
+
+
+@dataclass
+class EngineDecisions:
+    """Per instance: candidate keys in inventory order, the engine's similarity row (after
+    document consistency), its log prior row, probabilities, and the sense it chose."""
+
+    candidates: list[list[str]]
+    similarities: list[np.ndarray]
+    log_priors: list[np.ndarray]
+    probabilities: list[np.ndarray]
+
+    def best(self) -> dict[int, str]:
+        return {i: keys[int(np.argmax(p))] for i, (keys, p) in
+                enumerate(zip(self.candidates, self.probabilities, strict=True)) if keys}
+
+
+def engine_decisions(
+    encoder: Any,
+    reader: WordNetCorpusReader,
+    train: Sequence[Instance],
+    train_vectors: np.ndarray,
+    test: Sequence[Instance],
+    test_vectors: np.ndarray,
+    options: EngineOptions,
+    temperature: float | None = None,
+) -> EngineDecisions:
+    """Build the shipped engine for the lemmas of `test` (one WordNet inventory per part of
+    speech, every sense of each lemma, training instances of those lemmas as evidence) and
+    decide every test instance with it, from span vectors precomputed by `encoder`."""
+    settings = InventorySettings(abstain_threshold=0.0, temperature=temperature)
+    n = len(test)
+    decisions = EngineDecisions([[] for _ in range(n)], [np.zeros(0)] * n, [np.zeros(0)] * n,
+                                [np.zeros(0)] * n)
+    for pos in POS_ORDER:
+        wanted = [i for i, instance in enumerate(test) if instance.pos == pos]
+        if not wanted:
+            continue
+        inventory, _missing = build_wordnet_inventory(
+            reader, f"wordnet-{pos}", [test[i].lemma for i in wanted], pos=pos,
+            settings=settings)
+        if not inventory.terms:
+            continue
+        senses = {spec.term: {s.sense_id for s in spec.senses} for spec in inventory.terms}
+        chosen = [j for j, item in enumerate(train) if item.pos == pos
+                  and item.gold[0] in senses.get(_term(item.lemma), ())]
+        evidence = [Evidence(j + 1, _term(train[j].lemma), train[j].gold[0], train[j].text,
+                             train[j].start, train[j].end) for j in chosen]
+        engine = make_engine(encoder, inventory, evidence, train_vectors[chosen], options)
+        answered = [i for i in wanted if _term(test[i].lemma) in senses]
+        queries = [SpanQuery(test[i].text, test[i].start, test[i].end, _term(test[i].lemma),
+                             document_id=test[i].doc) for i in answered]
+        vectors = test_vectors[answered]
+        rows = engine.similarities(queries, engine.align(vectors))
+        results = engine.classify_vectors(queries, vectors)
+        for i, query, row, result in zip(answered, queries, rows, results, strict=True):
+            keys = list(engine.prototypes.senses(query.term))
+            by_id = {c.sense_id: c.probability for c in result.candidates}
+            decisions.candidates[i] = keys
+            decisions.similarities[i] = np.asarray(row, np.float64)
+            decisions.log_priors[i] = (engine.prototypes.log_prior(query.term)
+                                       if engine.sense_prior else np.zeros(len(keys)))
+            decisions.probabilities[i] = np.array([by_id[k] for k in keys])
+    if isinstance(encoder, CachingEncoder):
+        encoder.save()
+    return decisions
+
+
+def fit_engine_temperature(
+    decisions: EngineDecisions, instances: Sequence[Instance]
+) -> tuple[float, list[np.ndarray], list[int], list[np.ndarray]]:
+    """Temperature scaling on the engine's own rows (similarities and log prior) of labeled
+    instances, as `whichsense calibrate` does on an inventory's evidence."""
+    rows, gold, priors = [], [], []
+    for keys, row, prior, instance in zip(decisions.candidates, decisions.similarities,
+                                          decisions.log_priors, instances, strict=True):
         right = [j for j, key in enumerate(keys) if key in instance.gold]
         if len(keys) > 1 and right:
-            rows.append(s)
+            rows.append(row)
             gold.append(right[0])
-    return rows, gold
+            priors.append(prior)
+    if not rows:
+        return DEFAULT_TEMPERATURE, rows, gold, priors
+    return fit_temperature(rows, gold, log_priors=priors), rows, gold, priors
+
+
+def score_engine(
+    encoder: Any,
+    reader: WordNetCorpusReader,
+    fit: tuple[Sequence[Instance], np.ndarray],
+    held: tuple[Sequence[Instance], np.ndarray],
+    train: tuple[Sequence[Instance], np.ndarray],
+    test: tuple[Sequence[Instance], np.ndarray],
+    options: EngineOptions,
+) -> dict[str, Any]:
+    """Fit the temperature on `held` with an engine built from `fit`, then decide `test`
+    with an engine built from all of `train` at that temperature."""
+    held_decisions = engine_decisions(encoder, reader, *fit, *held, options)
+    temperature, rows, gold, priors = fit_engine_temperature(held_decisions, held[0])
+    decisions = engine_decisions(encoder, reader, *train, *test, options, temperature)
+    return {"decisions": decisions, "temperature": temperature,
+            "held_decisions": held_decisions, "held_rows": (rows, gold, priors)}
 
 
 def run_benchmark(
@@ -211,10 +353,11 @@ def run_benchmark(
     train_limit: int | None = None,
     cache_dir: Path | None = None,
     variants: bool = True,
-    extra_recipes: dict[str, PrototypeRecipe] | None = None,
+    previous: bool = True,
     log: Log = lambda _message: None,
 ) -> dict[str, Any]:
-    """Run the benchmark and return its figures as JSON-ready data (F1 values in percent).
+    """Run the benchmark on the shipped engine and return its figures as JSON-ready data
+    (F1 values in percent), with the baselines and the previous twin scorer beside it.
 
     Encodings are cached under `cache_dir` (None: nothing is read or written)."""
     config = config or BenchmarkConfig()
@@ -247,62 +390,58 @@ def run_benchmark(
     test_vectors, test_cached = encode_instances(encoder, test, cache_dir)
     clock = lap("encode_test", clock)
 
+    items = CachingEncoder(encoder, cache_dir) if cache_dir is not None else encoder
     held = [t for t, h in zip(train, is_held, strict=True) if h][: config.calibration_instances]
     held_vectors = train_vectors[is_held][: config.calibration_instances]
-    test_candidates = [candidate_keys(reader, i) for i in test]
-    held_candidates = [candidate_keys(reader, i) for i in held]
-    glosses = GlossTable(encoder, reader, config.gloss_template, cache_dir)
-    glosses.ensure([k for keys in test_candidates + held_candidates for k in keys])
-    clock = lap("encode_glosses", clock)
+    fit_train = [t for t, h in zip(train, is_held, strict=True) if not h]
+    fit_vectors = train_vectors[~is_held]
+    options = config.engine
 
-    train_keys = [i.gold[0] for i in train]
-    full = CorpusSenseVectors.from_training(reader, train_keys, train_vectors)
-    fit_only = CorpusSenseVectors.from_training(
-        reader, [k for k, h in zip(train_keys, is_held, strict=True) if not h],
-        train_vectors[~is_held])
-    clock = lap("prototypes", clock)
+    def engine_run(opts: EngineOptions, with_evidence: bool = True) -> dict[str, Any]:
+        empty: tuple[list[Instance], np.ndarray] = ([], np.zeros((0, encoder.dimension)))
+        return score_engine(
+            items, reader,
+            (fit_train, fit_vectors) if with_evidence else empty, (held, held_vectors),
+            (train, train_vectors) if with_evidence else empty, (test, test_vectors), opts)
 
-    recipe = config.recipe
-    held_decisions = decide(held_vectors, held_candidates, glosses, fit_only, recipe)
-    rows, gold_index = _rows_for_calibration(held_decisions, held)
-    temperature = fit_temperature(rows, gold_index) if rows else DEFAULT_TEMPERATURE
-    test_decisions = decide(test_vectors, test_candidates, glosses, full, recipe)
-    clock = lap("decide", clock)
+    run = engine_run(options)
+    decisions: EngineDecisions = run["decisions"]
+    temperature: float = run["temperature"]
+    rows, gold_index, priors = run["held_rows"]
+    clock = lap("engine", clock)
 
-    predicted = test_decisions.best()
-    ours = _f1_table(test, predicted)
+    predicted = decisions.best()
+    ours = f1_table(test, predicted)
     counts = training_sense_counts(train_sentences)
     mfs = {n: k for n, i in enumerate(test)
            if (k := most_frequent_sense(reader, counts, i.lemma, i.pos)) is not None}
     first = {n: k for n, i in enumerate(test)
              if (k := first_sense(reader, i.lemma, i.pos)) is not None}
 
-    confidence, hit = _confidences(test_decisions, test, temperature)
-    default_confidence, _ = _confidences(test_decisions, test, DEFAULT_TEMPERATURE)
+    confidence, hit = _confidences(decisions, test)
     curve = coverage_curve(confidence.tolist(), hit.tolist())
-    held_dev = _f1_table(held, held_decisions.best())
+    held_dev = f1_table(held, run["held_decisions"].best())
     held_curve = coverage_curve(*(
-        values.tolist() for values in confidences_and_hits(rows, gold_index, temperature)
+        values.tolist() for values in confidences_and_hits(rows, gold_index, temperature, priors)
     )) if rows else []
     result: dict[str, Any] = {
         "train_file": str(train_path),
         "test_file": str(test_path),
         "n": len(test),
+        "engine": "service.engine.Disambiguator",
         "f1": _pct(ours["all"]["f1"]),
-        "mfs_f1": _pct(_f1_table(test, mfs)["all"]["f1"]),
-        "first_sense_f1": _pct(_f1_table(test, first)["all"]["f1"]),
+        "mfs_f1": _pct(f1_table(test, mfs)["all"]["f1"]),
+        "first_sense_f1": _pct(f1_table(test, first)["all"]["f1"]),
         "coverage": round(ours["all"]["coverage"], 6),
         "per_pos": {p: _pct(v["f1"]) for p, v in ours.items() if p != "all"},
         "per_pos_n": {p: v["n"] for p, v in ours.items() if p != "all"},
-        "mfs_per_pos": {p: _pct(v["f1"]) for p, v in _f1_table(test, mfs).items() if p != "all"},
+        "mfs_per_pos": {p: _pct(v["f1"]) for p, v in f1_table(test, mfs).items() if p != "all"},
         "precision": _pct(ours["all"]["precision"]),
         "recall": _pct(ours["all"]["recall"]),
         "temperature": round(temperature, 6),
         "calibration_instances": len(rows),
         "held_out_f1": _pct(held_dev["all"]["f1"]),
         "ece": round(expected_calibration_error(confidence, hit), 6) if len(hit) else None,
-        "ece_at_default_temperature": round(
-            expected_calibration_error(default_confidence, hit), 6) if len(hit) else None,
         "ece_bins": [
             {"lower": round(b.lower, 3), "upper": round(b.upper, 3), "count": b.count,
              "confidence": round(b.mean_confidence, 4), "accuracy": round(b.accuracy, 4)}
@@ -321,26 +460,51 @@ def run_benchmark(
         "model_id": encoder.model_id,
         "cached": {"train": train_cached, "test": test_cached},
     }
+    if previous:
+        result["previous_engine_f1"] = _previous_engine_f1(
+            encoder, reader, config, train, train_vectors, test, test_vectors, cache_dir)
+        clock = lap("previous_engine", clock)
     if variants:
-        result["variants"] = _variants(test, test_vectors, test_candidates, glosses, full, recipe,
-                                       extra_recipes or {})
-    timings["variants"] = round(time.perf_counter() - clock, 2)
+        others = {"engine without sense prior": (replace(options, sense_prior_pos=""), True),
+                  "engine with sense prior on every part of speech":
+                      (replace(options, sense_prior_pos="nvar"), True),
+                  "engine, glosses and examples only (no evidence)": (options, False)}
+        if options.head is not None:
+            others["engine without alignment head"] = (replace(options, head=None), True)
+        result["variants"] = {
+            name: _pct(f1_table(test, engine_run(opts, evidence)["decisions"].best())
+                       ["all"]["f1"]) for name, (opts, evidence) in others.items()}
+        clock = lap("variants", clock)
     result["timings"] = timings
     result["seconds"] = round(time.perf_counter() - started, 2)
     return result
 
 
+def _previous_engine_f1(
+    encoder: Any, reader: WordNetCorpusReader, config: BenchmarkConfig,
+    train: Sequence[Instance], train_vectors: np.ndarray,
+    test: Sequence[Instance], test_vectors: np.ndarray, cache_dir: Path | None,
+) -> float:
+    """F1 of the twin scorer the benchmark used before it measured the shipped engine
+    (service/wordnet/prototypes.py), kept for comparison on the same vectors."""
+    candidates = [candidate_keys(reader, i) for i in test]
+    glosses = GlossTable(encoder, reader, DEFAULT_GLOSS_TEMPLATE, cache_dir)
+    glosses.ensure([k for keys in candidates for k in keys])
+    corpus = CorpusSenseVectors.from_training(reader, [i.gold[0] for i in train], train_vectors)
+    decided = decide(test_vectors, candidates, glosses, corpus, PrototypeRecipe())
+    return _pct(f1_table(test, decided.best())["all"]["f1"])
+
+
 def _confidences(
-    decisions: Decisions, instances: Sequence[Instance], temperature: float
+    decisions: EngineDecisions, instances: Sequence[Instance]
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Top probability of softmax(scores / T) and whether the top sense is a gold key,
-    for every answered instance."""
+    """The engine's top probability and whether its top sense is a gold key, for every
+    answered instance."""
     confidence, hit = [], []
-    for keys, scores, instance in zip(decisions.candidates, decisions.scores, instances,
-                                      strict=True):
+    for keys, probabilities, instance in zip(decisions.candidates, decisions.probabilities,
+                                             instances, strict=True):
         if not keys:
             continue
-        probabilities = softmax(scores, temperature)
         best = int(np.argmax(probabilities))
         confidence.append(float(probabilities[best]))
         hit.append(keys[best] in instance.gold)
@@ -371,29 +535,3 @@ def _apply_threshold(
 
 def _pct(value: float) -> float:
     return round(100.0 * value, 2)
-
-
-def _variants(
-    test: Sequence[Instance],
-    vectors: np.ndarray,
-    candidates: list[list[str]],
-    glosses: GlossTable,
-    corpus: CorpusSenseVectors,
-    recipe: PrototypeRecipe,
-    extra_recipes: dict[str, PrototypeRecipe],
-) -> dict[str, float]:
-    """F1 of simpler recipes (and any `extra_recipes`) on the same vectors."""
-    options = {
-        "gloss only": replace(recipe, use_corpus=False),
-        "gloss + corpus blend, no prior": replace(recipe, prior_weight=0.0, fallback="gloss"),
-        "blend + relations fallback, no prior": replace(recipe, prior_weight=0.0,
-                                                        fallback="relations"),
-        "blend + prior, relations fallback": replace(recipe, fallback="relations"),
-        "blend + prior, gloss fallback": replace(recipe, fallback="gloss"),
-        **extra_recipes,
-    }
-    return {
-        name: _pct(_f1_table(test, decide(vectors, candidates, glosses, corpus, option)
-                             .best())["all"]["f1"])
-        for name, option in options.items()
-    }

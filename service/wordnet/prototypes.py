@@ -1,4 +1,8 @@
-"""Score the WordNet senses of an occurrence: gloss, corpus evidence, frequency.
+"""The previous benchmark-only scorer of WordNet senses: gloss, corpus evidence, frequency.
+
+`whichsense benchmark wordnet` now measures the shipped engine; this twin is
+kept only to report its F1 beside the engine's in the same run
+(`previous_engine_f1`). No user-facing path runs it.
 
 Each candidate sense k of an occurrence vector x (unit length) gets
 

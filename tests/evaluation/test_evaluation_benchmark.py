@@ -40,7 +40,9 @@ def test_slice_beats_the_same_slice_most_frequent_sense(slice_result) -> None:  
     assert slice_result["per_pos"] == {"n": slice_result["f1"]}
     assert slice_result["precision"] == slice_result["recall"] == slice_result["f1"]
     assert slice_result["f1"] > slice_result["mfs_f1"]
-    assert slice_result["f1"] > slice_result["variants"]["gloss only"]
+    assert slice_result["f1"] > slice_result["variants"][
+        "engine, glosses and examples only (no evidence)"]
+    assert slice_result["engine"] == "service.engine.Disambiguator"
 
 
 @pytest.mark.slow
