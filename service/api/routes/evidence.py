@@ -29,6 +29,9 @@ class LabeledOccurrenceIn(Strict):
     end: int = Field(gt=0)
     term: str = Field(min_length=1, max_length=200)
     sense: str = Field(min_length=1, max_length=200)
+    # Carried over from a labeled-occurrence file line (README, Formats); not stored.
+    id: str | None = Field(default=None, max_length=200)
+    document_id: str | None = Field(default=None, max_length=200)
 
 
 class EvidenceIn(Strict):
