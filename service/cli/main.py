@@ -48,6 +48,7 @@ def _add_optional(commands: argparse._SubParsersAction, name: str) -> None:
 def main(argv: Sequence[str] | None = None) -> int:
     os.environ.setdefault("HF_HUB_OFFLINE", "1")
     os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
+    os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")  # before torch loads: see engine/encoder
     parser = build_parser()
     args = parser.parse_args(argv)
     logging.basicConfig(
