@@ -35,7 +35,8 @@ ProgressBar = Callable[[], Any]  # a tqdm-like context manager with update(n)
 TERMINAL = {"done", "failed", "cancelled"}
 START_TIMEOUT_S = 600.0
 BATCH_TIMEOUT_S = 3600.0
-POLL_S = 0.2
+POLL_S = 0.2  # worker idle poll
+STATUS_POLL_S = 0.5  # how often the client asks for the batch state, as a pipeline would
 
 
 @dataclass(frozen=True)
@@ -186,7 +187,7 @@ class Deployment:
                     break
                 if time.monotonic() > deadline:
                     raise RuntimeError(f"batch {batch} did not finish; logs in {self.logs}")
-                time.sleep(POLL_S)
+                time.sleep(STATUS_POLL_S)
             if status["state"] != "done":
                 raise RuntimeError(f"batch {batch} ended {status['state']}; logs in {self.logs}")
             results = http.get(f"/v1/batches/{batch}/results",

@@ -190,3 +190,36 @@ def test_model_id_names_the_directory_contents(encoder, tmp_path):
     before = _directory_digest(tmp_path)
     (tmp_path / "config.json").write_text('{"changed": true}')
     assert _directory_digest(tmp_path) != before
+
+
+def test_default_threads_leave_loaded_cores_alone():
+    from service.engine.encoder import default_thread_count
+
+    assert default_thread_count(cores=2, load=0.2) == 2  # quiet host: every core
+    assert default_thread_count(cores=2, load=1.6) == 1  # one core busy elsewhere
+    assert default_thread_count(cores=2, load=12.0) == 1  # never fewer than one
+    assert default_thread_count(cores=8, load=3.0) == 5
+
+
+def test_padded_batches_match_one_text_at_a_time(encoder):
+    # Dynamic padding and length bucketing must not change a vector: the same spans encoded
+    # in one mixed-length call and one by one agree (padding is masked out of attention).
+    spans = [
+        (SENTENCE, 19, 23),
+        ("A bass.", 2, 6),
+        ("The bass line of that song carries the whole chorus for a minute or two.", 4, 8),
+    ]
+    together = encoder.encode_spans(spans)
+    alone = np.vstack([encoder.encode_spans([span]) for span in spans])
+    assert np.allclose(together, alone, atol=1e-4)
+
+
+@pytest.mark.slow
+def test_int8_encoder_is_a_different_model_close_to_the_float_one(encoder):
+    from service.engine.encoder import ContextEncoder
+
+    quantized = ContextEncoder(encoder.model_path, num_threads=1, quantize=True)
+    assert quantized.model_id == encoder.model_id + ":int8"  # prototypes never mix
+    span = [(SENTENCE, 19, 23)]
+    cosine = float(encoder.encode_spans(span)[0] @ quantized.encode_spans(span)[0])
+    assert 0.9 < cosine < 1.0  # int8 weights move the vector a little, not away
