@@ -155,10 +155,10 @@ def _git_commit() -> str:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    from research.files import file_digest
     from service.engine import ContextEncoder
     from service.engine.lexicon import open_wordnet
     from service.evaluation.benchmark import encode_instances, flatten
-    from service.evaluation.encoding_cache import file_digest
     from service.evaluation.splits import is_held_out
     from service.evaluation.vector_store import CachingEncoder
     from service.wordnet.corpus import CorpusStats, read_corpus

@@ -30,7 +30,7 @@ from .encoder import ContextEncoder, SpanEncoding
 from .errors import DocumentTooLarge, InventoryError, UnknownTerm
 from .occurrences import OccurrenceFinder
 from .outliers import OccurrenceScorer
-from .prototypes import PrototypeBook
+from .prototypes import DEFAULT_EVIDENCE_PRIOR, PrototypeBook
 from .rationale import Rationale, attention_words, erasure_drops, rollout_words
 from .trust import TrustFit, fit_trust
 from .types import Document, Evidence, InventorySpec, Occurrence, Status
@@ -135,6 +135,7 @@ class Disambiguator:
         evidence_vectors: np.ndarray | None = None,
         consistency_weight: float = DEFAULT_CONSISTENCY_WEIGHT,
         sense_prior: bool = False,
+        evidence_prior: float = DEFAULT_EVIDENCE_PRIOR,
         top_words: int = 5,
         erasure_for: frozenset[Status] = frozenset(),
         max_document_chars: int = DEFAULT_MAX_DOCUMENT_CHARS,
@@ -157,7 +158,12 @@ class Disambiguator:
         self.finder = finder or OccurrenceFinder(inventory)
         if prototypes is None:
             prototypes = PrototypeBook.build(
-                encoder, inventory, evidence, evidence_vectors=evidence_vectors, finder=self.finder
+                encoder,
+                inventory,
+                evidence,
+                evidence_vectors=evidence_vectors,
+                finder=self.finder,
+                evidence_prior=evidence_prior,
             )
         else:
             if prototypes.model_id != encoder.model_id:
