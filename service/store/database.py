@@ -7,10 +7,12 @@ dialect differences that matter at run time (foreign keys, WAL, busy waits).
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
 from functools import lru_cache
 from pathlib import Path
+from typing import Any
 
 from alembic import command
 from alembic.config import Config
@@ -26,6 +28,10 @@ MIGRATIONS_DIR = Path(__file__).resolve().parent.parent.parent / "migrations"
 
 
 READ_ONLY_OPTION = "whichsense_read_only"
+# How long a writer waits at the in-process gate before leaving it to SQLite's own
+# busy wait (a thread that already holds the gate must not wait on itself forever).
+WRITE_GATE_WAIT_SECONDS = 30.0
+_GATE_HELD = "whichsense_write_gate"
 
 
 class DatabaseNotMigrated(RuntimeError):
@@ -33,6 +39,8 @@ class DatabaseNotMigrated(RuntimeError):
 
 
 def _configure_sqlite(engine: Engine) -> None:
+    gate = threading.Lock()
+
     @event.listens_for(engine, "connect")
     def _on_connect(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]
         # Let Python's sqlite3 stop issuing its own BEGIN so we control it.
@@ -51,9 +59,34 @@ def _configure_sqlite(engine: Engine) -> None:
             # the writer, so status reads stay fast while batches are written.
             conn.exec_driver_sql("BEGIN")
             return
-        # IMMEDIATE takes the write lock up front: one claimer at a time, no
-        # deadlock-prone lock upgrades between the API and the worker.
-        conn.exec_driver_sql("BEGIN IMMEDIATE")
+        # Writers of this process queue here, blocked rather than polling: SQLite's busy
+        # handler sleeps up to 100 ms between tries, so a newcomer can take the lock
+        # again and again ahead of a request that has waited for seconds.
+        if gate.acquire(timeout=WRITE_GATE_WAIT_SECONDS):
+            conn.info[_GATE_HELD] = True
+        try:
+            # IMMEDIATE takes the write lock up front: one claimer at a time, no
+            # deadlock-prone lock upgrades between the API and the worker.
+            conn.exec_driver_sql("BEGIN IMMEDIATE")
+        except BaseException:
+            _leave(conn.info)
+            raise
+
+    def _leave(info: dict[Any, Any]) -> None:
+        if info.pop(_GATE_HELD, False):
+            gate.release()
+
+    @event.listens_for(engine, "commit")
+    def _on_commit(conn) -> None:  # type: ignore[no-untyped-def]
+        _leave(conn.info)
+
+    @event.listens_for(engine, "rollback")
+    def _on_rollback(conn) -> None:  # type: ignore[no-untyped-def]
+        _leave(conn.info)
+
+    @event.listens_for(engine, "checkin")
+    def _on_checkin(_dbapi_connection, record) -> None:  # type: ignore[no-untyped-def]
+        _leave(record.info)  # a connection returned mid-transaction (error, invalidation)
 
 
 def make_engine(url: str) -> Engine:
