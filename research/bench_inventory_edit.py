@@ -30,6 +30,7 @@ from service.config import Settings
 from service.store import database
 from service.store.inventories import create_inventory
 from service.store.keys import create_key
+from service.store.teams import ensure_team
 
 
 def big_inventory(terms: int) -> dict[str, Any]:
@@ -66,8 +67,15 @@ def main() -> None:
         settings = Settings(database_url=url, cache_dir=Path(folder) / "cache")
         started = time.perf_counter()
         with database.session_scope(settings) as session:
-            create_inventory(session, big_inventory(args.terms), settings=settings)
-            token = create_key(session, "admin").token
+            team_id = ensure_team(session, "default").id
+            create_inventory(
+                session,
+                team_id,
+                big_inventory(args.terms),
+                defaults=settings.inventory_defaults(),
+                settings=settings,
+            )
+            token = create_key(session, team_id, "admin").token
         took = time.perf_counter() - started
         print(f"created {args.terms} terms in {took:.1f} s ({url.split(':')[0]})")
         headers = {"Authorization": f"Bearer {token}"}

@@ -5,12 +5,13 @@ from __future__ import annotations
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 
-from fastapi import Depends, Request
+from fastapi import Request
 from sqlalchemy.orm import Session
 
 from service.api.problems import ProblemError
 from service.config import Settings
 from service.store.keys import Scope, authenticate, grants
+from service.store.models import ApiKey
 
 _CHALLENGE = {"WWW-Authenticate": "Bearer"}
 
@@ -44,6 +45,16 @@ class Caller:
     team_id: int
 
 
+def _look_up(request: Request, token: str) -> ApiKey | None:
+    """The live key for `token`, read in a read-only session of its own.
+
+    The lookup writes nothing, so on SQLite it must not take the one write lock: a
+    POST would otherwise queue for that lock twice (here, then for its own writes).
+    """
+    with request.app.state.read_sessions() as session:
+        return authenticate(session, token)  # closing detaches it, attributes loaded
+
+
 def require_scope(needed: Scope | None) -> Callable[..., Caller]:
     """A dependency admitting keys that grant `needed` (any live key when None).
 
@@ -51,13 +62,13 @@ def require_scope(needed: Scope | None) -> Callable[..., Caller]:
     scope is 403, so a client can tell "who are you" from "not allowed".
     """
 
-    def dependency(request: Request, session: Session = Depends(get_session)) -> Caller:
+    def dependency(request: Request) -> Caller:
         scheme, _, token = request.headers.get("authorization", "").partition(" ")
         if scheme.lower() != "bearer" or not token.strip():
             raise ProblemError(
                 401, "send an API key as 'Authorization: Bearer <key>'", headers=_CHALLENGE
             )
-        key = authenticate(session, token.strip())
+        key = _look_up(request, token.strip())
         if key is None:
             raise ProblemError(
                 401,
@@ -69,11 +80,7 @@ def require_scope(needed: Scope | None) -> Callable[..., Caller]:
             raise ProblemError(
                 403, f"this route needs scope '{needed}'; the key has scope '{key.scope}'"
             )
-        caller = Caller(key.key_id, key.scope, key.signing_secret, key.team_id)
-        # End the lookup's transaction now: on SQLite it holds the single write lock,
-        # which must not stay taken while a route waits for a slow request body.
-        session.rollback()
-        return caller
+        return Caller(key.key_id, key.scope, key.signing_secret, key.team_id)
 
     return dependency
 

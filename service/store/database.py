@@ -7,10 +7,13 @@ dialect differences that matter at run time (foreign keys, WAL, busy waits).
 
 from __future__ import annotations
 
+import threading
+import weakref
 from collections.abc import Iterator
 from contextlib import contextmanager
 from functools import lru_cache
 from pathlib import Path
+from typing import Any
 
 from alembic import command
 from alembic.config import Config
@@ -18,6 +21,7 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.engine import make_url
+from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
@@ -26,13 +30,26 @@ MIGRATIONS_DIR = Path(__file__).resolve().parent.parent.parent / "migrations"
 
 
 READ_ONLY_OPTION = "whichsense_read_only"
+# How long a writer waits at the in-process gate before leaving it to SQLite's own
+# busy wait (a thread that already holds the gate must not wait on itself forever).
+WRITE_GATE_WAIT_SECONDS = 30.0
 
 
 class DatabaseNotMigrated(RuntimeError):
     """The schema is missing or older than this code; `whichsense db upgrade` fixes it."""
 
 
+_WRITE_GATES: weakref.WeakKeyDictionary[Engine, threading.Lock] = weakref.WeakKeyDictionary()
+
+
+def write_gate(engine: Engine) -> threading.Lock | None:
+    """The lock this process's writers to a SQLite `engine` queue on (None: not SQLite)."""
+    return _WRITE_GATES.get(engine)
+
+
 def _configure_sqlite(engine: Engine) -> None:
+    gate = _WRITE_GATES.setdefault(engine, threading.Lock())
+
     @event.listens_for(engine, "connect")
     def _on_connect(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]
         # Let Python's sqlite3 stop issuing its own BEGIN so we control it.
@@ -51,9 +68,53 @@ def _configure_sqlite(engine: Engine) -> None:
             # the writer, so status reads stay fast while batches are written.
             conn.exec_driver_sql("BEGIN")
             return
-        # IMMEDIATE takes the write lock up front: one claimer at a time, no
-        # deadlock-prone lock upgrades between the API and the worker.
-        conn.exec_driver_sql("BEGIN IMMEDIATE")
+        # Writers of this process queue here, blocked rather than polling: SQLite's busy
+        # handler sleeps up to 100 ms between tries, so a newcomer can take the lock
+        # again and again ahead of a request that has waited for seconds.
+        raw = conn.connection.dbapi_connection
+        if gate.acquire(timeout=WRITE_GATE_WAIT_SECONDS):
+            holders.add(raw)
+        try:
+            # IMMEDIATE takes the write lock up front: one claimer at a time, no
+            # deadlock-prone lock upgrades between the API and the worker.
+            conn.exec_driver_sql("BEGIN IMMEDIATE")
+        except BaseException:
+            _leave(raw)
+            raise
+
+    # The DBAPI connections whose transaction holds the gate (the pool's `info` is
+    # reset when a connection is invalidated, so the mark cannot live there).
+    holders: set[Any] = set()
+
+    def _leave(raw: Any) -> None:
+        try:
+            holders.remove(raw)
+        except KeyError:
+            return
+        gate.release()
+
+    def _leave_connection(conn: Any) -> None:
+        try:
+            raw = conn.connection.dbapi_connection
+        except SQLAlchemyError:
+            return  # invalidated: the pool's invalidate event frees the gate
+        _leave(raw)
+
+    @event.listens_for(engine, "commit")
+    def _on_commit(conn) -> None:  # type: ignore[no-untyped-def]
+        _leave_connection(conn)
+
+    @event.listens_for(engine, "rollback")
+    def _on_rollback(conn) -> None:  # type: ignore[no-untyped-def]
+        _leave_connection(conn)
+
+    @event.listens_for(engine, "checkin")
+    def _on_checkin(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]
+        _leave(dbapi_connection)  # a connection returned mid-transaction
+
+    @event.listens_for(engine, "invalidate")
+    def _on_invalidate(dbapi_connection, _record, _exception) -> None:  # type: ignore[no-untyped-def]
+        _leave(dbapi_connection)  # a lost connection
 
 
 def make_engine(url: str) -> Engine:

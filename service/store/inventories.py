@@ -331,8 +331,9 @@ def delete_inventory(
     session: Session, team_id: int, name: str, *, key_id: str | None = None
 ) -> None:
     inventory = get_inventory(session, team_id, name, for_update=True)
-    session.delete(inventory)
-    session.flush()
+    # One statement; the database cascades to terms, senses, examples, versions and
+    # batches (the ORM cascade would load every row of a large inventory first).
+    session.execute(delete(Inventory).where(Inventory.id == inventory.id))
     record_audit(session, team_id, key_id, "inventory.delete", name, {})
 
 

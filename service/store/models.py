@@ -123,7 +123,8 @@ class Sense(Base):
 
     id: Mapped[int] = mapped_column(primary_key=True)
     inventory_id: Mapped[int] = mapped_column(ForeignKey("inventories.id", ondelete="CASCADE"))
-    term_id: Mapped[int] = mapped_column(ForeignKey("terms.id", ondelete="CASCADE"))
+    # Indexed: deleting a term cascades to its senses (else a scan of every sense).
+    term_id: Mapped[int] = mapped_column(ForeignKey("terms.id", ondelete="CASCADE"), index=True)
     sense_key: Mapped[str] = mapped_column(String(200))
     gloss: Mapped[str] = mapped_column(Text)
     tags: Mapped[list[Any]] = mapped_column(JSON, default=list)
@@ -141,7 +142,8 @@ class SenseExample(Base):
     __tablename__ = "sense_examples"
 
     id: Mapped[int] = mapped_column(primary_key=True)
-    sense_id: Mapped[int] = mapped_column(ForeignKey("senses.id", ondelete="CASCADE"))
+    # Indexed: deleting a sense cascades to its examples (else a scan of every example).
+    sense_id: Mapped[int] = mapped_column(ForeignKey("senses.id", ondelete="CASCADE"), index=True)
     text: Mapped[str] = mapped_column(Text)
     position: Mapped[int] = mapped_column(Integer, default=0)
 

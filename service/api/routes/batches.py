@@ -70,6 +70,13 @@ def _status(session: Session, request: Request, batch: Batch) -> dict[str, Any]:
     return batches.describe(session, batch, _path(request, batch.id))
 
 
+def _status_after_commit(request: Request, batch: Batch) -> dict[str, Any]:
+    """The status document read in a read-only session: on SQLite, re-using the
+    submission's session would queue for the write lock a second time."""
+    with request.app.state.read_sessions() as reads:
+        return _status(reads, request, batch)
+
+
 @router.post(
     "/batches",
     status_code=202,
@@ -103,7 +110,7 @@ async def submit_batch(
     )
     submitted = await intake.submit()
     location = {"Location": _path(request, submitted.batch.id)}
-    body = await run_in_threadpool(_status, session, request, submitted.batch)
+    body = await run_in_threadpool(_status_after_commit, request, submitted.batch)
     if submitted.replayed:
         replayed = {**location, "Idempotent-Replayed": "true"}
         return JSONResponse(body, status_code=200, headers=replayed)
