@@ -67,7 +67,7 @@ def main(argv: Sequence[str] | None = None, *, settings: Settings | None = None)
         format="%(asctime)s %(levelname)s %(name)s: %(message)s",
     )
     if not args.verbose:
-        for chatty in ("httpx", "alembic.runtime.migration"):
+        for chatty in ("httpx", "alembic"):
             logging.getLogger(chatty).setLevel(logging.WARNING)
 
     from service.config import load_settings
