@@ -249,17 +249,10 @@ def queue_page(
     chosen, order = _filter_from(request.query_params)
     counts = queue_counts(session, who.team_id, chosen)
     items = list_queue(session, who.team_id, chosen, order, limit=40)
-    terms = sorted(
-        {
-            (i, t)
-            for i, t, _ in queue_counts(
-                session, who.team_id, QueueFilter(chosen.inventory)
-            ).per_term
-        }
-    )
-    batches = [
-        b for b, _, _ in queue_counts(session, who.team_id, QueueFilter(chosen.inventory)).per_batch
-    ]
+    # The filter menus list every term and batch of the chosen inventory, not only the shown ones.
+    menus = queue_counts(session, who.team_id, QueueFilter(chosen.inventory))
+    terms = sorted({(i, t) for i, t, _ in menus.per_term})
+    batches = [b for b, _, _ in menus.per_batch]
     return _html(
         request,
         "queue.html",
