@@ -78,18 +78,19 @@ def build_disambiguator(
     encoder = encoder if encoder is not None else load_encoder(settings)
     if finder is None:
         finder = OccurrenceFinder(inventory, open_wordnet(cache_dir=settings.cache_dir))
-    disambiguator = Disambiguator(
+    known = {(spec.term, sense.sense_id) for spec in inventory.terms for sense in spec.senses}
+    # Evidence goes in before the engine fits its trust settings (temperature, review
+    # threshold, missing-sense model) from the labeled items, so the fit sees it.
+    return Disambiguator(
         encoder,
         inventory,
+        [item for item in evidence if (item.term, item.sense_id) in known],
         prototypes=prototypes,
         finder=finder,
         # The engine counts characters; a document within the byte limit is within this too.
         max_document_chars=settings.max_document_bytes,
         erasure_for=erasure_for,
     )
-    if evidence:
-        disambiguator.prototypes.add_evidence(evidence, encoder=encoder, skip_unknown=True)
-    return disambiguator
 
 
 class EngineRetired(RuntimeError):
