@@ -140,10 +140,23 @@ def session_factory(url: str) -> sessionmaker[Session]:
     return sessionmaker(engine_for(url), expire_on_commit=False)
 
 
+def read_only(sessions: sessionmaker[Session]) -> sessionmaker[Session]:
+    """`sessions` for work that only reads: on SQLite their transactions are deferred
+    (no BEGIN IMMEDIATE, no place at the write gate), so under WAL they read the last
+    commit without waiting for a writer and never make a writer wait."""
+    bind = sessions.kw.get("bind")
+    if not isinstance(bind, Engine):
+        raise TypeError("read_only needs sessions bound to one engine")
+    if bind.get_execution_options().get(READ_ONLY_OPTION):
+        return sessions
+    return sessionmaker(
+        **{**sessions.kw, "bind": bind.execution_options(**{READ_ONLY_OPTION: True})}
+    )
+
+
 def read_session_factory(url: str) -> sessionmaker[Session]:
     """Sessions for requests that only read (on SQLite they skip the write lock)."""
-    engine = engine_for(url).execution_options(**{READ_ONLY_OPTION: True})
-    return sessionmaker(engine, expire_on_commit=False)
+    return read_only(session_factory(url))
 
 
 @contextmanager
