@@ -40,6 +40,9 @@ class DatabaseNotMigrated(RuntimeError):
 
 
 _WRITE_GATES: weakref.WeakKeyDictionary[Engine, threading.Lock] = weakref.WeakKeyDictionary()
+_READ_ONLY: weakref.WeakKeyDictionary[sessionmaker[Session], sessionmaker[Session]] = (
+    weakref.WeakKeyDictionary()
+)
 
 
 def write_gate(engine: Engine) -> threading.Lock | None:
@@ -149,9 +152,13 @@ def read_only(sessions: sessionmaker[Session]) -> sessionmaker[Session]:
         raise TypeError("read_only needs sessions bound to one engine")
     if bind.get_execution_options().get(READ_ONLY_OPTION):
         return sessions
-    return sessionmaker(
-        **{**sessions.kw, "bind": bind.execution_options(**{READ_ONLY_OPTION: True})}
-    )
+    reads = _READ_ONLY.get(sessions)
+    if reads is None:  # one per factory: a worker asks on every poll
+        reads = sessionmaker(
+            **{**sessions.kw, "bind": bind.execution_options(**{READ_ONLY_OPTION: True})}
+        )
+        _READ_ONLY[sessions] = reads
+    return reads
 
 
 def read_session_factory(url: str) -> sessionmaker[Session]:
