@@ -4,10 +4,15 @@ No HTTP here: the API hands over a `Submission` (the body as an async byte
 stream, its media type, the query, how to name a batch's URL) and maps
 `Refused` to problem documents. The body is read as it arrives, hashed for the
 idempotency check as it goes, cut into documents that are validated, counted
-(occurrences, with the pinned inventory's finder) and inserted a group at a
-time. Any problem raises before commit, so a refused submission stores
-nothing. Database work runs in the thread pool: the event loop never waits on
-a lock.
+(occurrences, with the inventory's finder) and inserted a group at a time. Any
+problem raises before commit, so a refused submission stores nothing. Database
+work runs in the thread pool: the event loop never waits on a lock.
+
+On SQLite (one writer at a time) the whole body is read, validated and counted
+before the write transaction begins, which then only inserts; should the
+inventory get a new version meanwhile, the documents are counted again with
+the version the batch is pinned to. Reads (the idempotency lookup, the
+inventory's finder) never take the write lock.
 
 NDJSON bodies: the inventory comes from `?inventory=` (then every line is a
 document), or else the first non-blank line is a header object
@@ -26,7 +31,6 @@ from dataclasses import dataclass, field
 from typing import IO, Any, TypeVar
 
 import anyio.to_thread
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.batches.documents import DocumentInvalid, InputDocument, parse_document
@@ -39,7 +43,8 @@ from service.json_text import loads
 from service.refusal import Refused
 from service.store.clock import database_now
 from service.store.database import read_session_factory
-from service.store.models import Batch, Inventory
+from service.store.inventories import get_inventory
+from service.store.models import Batch
 from service.tagging.engines import shared_engines
 
 NDJSON_TYPES = ("application/x-ndjson", "application/jsonl", "application/json-lines")
@@ -189,6 +194,10 @@ class Intake:
         self.batch: Batch | None = None
         self._sink: DocumentSink | None = None
         self._finder: OccurrenceFinder | None = None
+        self._counted_with: tuple[int, int] | None = None  # the finder's (inventory, version)
+        self.single_writer = self.session.get_bind().dialect.name == "sqlite"
+        self._opened: tuple[Header, str | None] | None = None  # with the checked callback
+        self._counted: list[tuple[dict[str, Any], InputDocument, int]] = []
 
     async def _hashed(self, stream: AsyncIterator[bytes]) -> AsyncIterator[bytes]:
         async for chunk in stream:
@@ -198,12 +207,12 @@ class Intake:
     async def spool_for_single_writer(self) -> None:
         """On SQLite, read the whole body before touching the database.
 
-        Every SQLite transaction takes the one write lock (BEGIN IMMEDIATE), so
+        Every SQLite write transaction takes the one write lock (BEGIN IMMEDIATE), so
         streaming a slow upload inside the transaction would stall the worker's
         claims and heartbeats for as long as the client takes. The body (at most
         `max_request_bytes`) goes to a temporary file, memory up to SPOOL_IN_MEMORY.
         """
-        if self.session.get_bind().dialect.name != "sqlite":
+        if not self.single_writer:
             return
         spool = tempfile.SpooledTemporaryFile(max_size=SPOOL_IN_MEMORY)  # noqa: SIM115
         async for chunk in self._chunks:
@@ -236,7 +245,10 @@ class Intake:
         return Submitted(batch, replayed=False)
 
     def _earlier(self, key: str) -> Batch | None:
-        return find_by_idempotency_key(self.session, self.team_id, self.key_id, key)
+        """The batch stored earlier under `key`, read in a read-only session (closing it
+        detaches the batch with its attributes loaded)."""
+        with read_session_factory(self.settings.database_url)() as session:
+            return find_by_idempotency_key(session, self.team_id, self.key_id, key)
 
     async def _replay(self, existing: Batch) -> Submitted:
         if await self.drain() != existing.request_digest:
@@ -325,7 +337,7 @@ class Intake:
                         kind="malformed-ndjson",
                         line=number,
                     ) from None
-                if self.batch is None:
+                if self._opened is None:
                     if not isinstance(item, dict) or "inventory" not in item:
                         raise Refused(
                             "invalid",
@@ -341,7 +353,7 @@ class Intake:
             raise Refused(
                 "too_large", str(exc), limit="max_document_bytes", line=exc.number
             ) from None
-        if self.batch is None:
+        if self._opened is None:
             raise Refused("invalid", "the body has no header and no documents")
         return await self._finish()
 
@@ -367,27 +379,28 @@ class Intake:
 
     async def _start(self, header: Header) -> None:
         callback = await run_in_threadpool(check_callback, header.callback_url, self.settings)
-        await run_in_threadpool(self._warm_finder, header.inventory)
-        await run_in_threadpool(self._start_batch, header, callback)
+        await run_in_threadpool(self._find_finder, header.inventory)
+        self._opened = (header, callback)
+        if not self.single_writer:
+            await run_in_threadpool(self._start_batch, header, callback)
 
-    def _warm_finder(self, inventory: str) -> None:
-        """Build the current version's finder before the write transaction (a first build
-        loads WordNet: on SQLite every other writer would wait for it)."""
-        reads = read_session_factory(self.settings.database_url)
-        with reads() as session:
-            row = session.execute(
-                select(Inventory.id, Inventory.version).where(
-                    Inventory.team_id == self.team_id, Inventory.name == inventory
-                )
-            ).one_or_none()
-            if row is None:
-                return  # start_batch answers 404
-            engines = shared_engines()
-            spec = engines.spec(session, self.settings.database_url, row.id, row.version)
+    def _find_finder(self, inventory: str) -> None:
+        """The current version's finder, found in a read-only session before any write (a
+        first build loads WordNet; on SQLite the documents are counted with it before the
+        write lock is taken). An unknown inventory is NotFound (404) here."""
+        url = self.settings.database_url
+        engines = shared_engines()
+        with read_session_factory(url)() as session:
+            found = get_inventory(session, self.team_id, inventory)
+            spec = engines.spec(session, url, found.id, found.version)
+            self._counted_with = (found.id, found.version)
             session.rollback()
-        engines.finder(self.settings.database_url, spec)
+        self._finder = engines.finder(url, spec)
 
-    def _start_batch(self, header: Header, callback: str | None) -> None:
+    def _start_batch(self, header: Header, callback: str | None) -> bool:
+        """Insert the batch row (the write transaction begins here); True if its pinned
+        inventory version is not the one the finder was found for (the finder then
+        becomes the pinned version's, and documents counted already must be recounted)."""
         from sqlalchemy.exc import IntegrityError
 
         try:
@@ -405,15 +418,15 @@ class Intake:
         except IntegrityError:
             self.session.rollback()
             raise IdempotencyClash() from None
-        engines = shared_engines()
-        spec = engines.spec(
-            self.session,
-            self.settings.database_url,
-            self.batch.inventory_id,
-            self.batch.inventory_version,
-        )
-        self._finder = engines.finder(self.settings.database_url, spec)
         self._sink = DocumentSink(self.session, self.batch)
+        pinned = (self.batch.inventory_id, self.batch.inventory_version)
+        if pinned == self._counted_with:
+            return False
+        engines = shared_engines()
+        spec = engines.spec(self.session, self.settings.database_url, *pinned)
+        self._finder = engines.finder(self.settings.database_url, spec)
+        self._counted_with = pinned
+        return True
 
     async def _take(self, item: Any, where: dict[str, Any]) -> None:
         try:
@@ -451,24 +464,36 @@ class Intake:
         if group:
             await run_in_threadpool(self._store, group)
 
-    def _store(self, group: list[tuple[dict[str, Any], InputDocument]]) -> None:
-        assert self._finder is not None and self._sink is not None
+    def _count(self, where: dict[str, Any], document: InputDocument) -> int:
+        """The document's occurrences with the current finder (Refused over the limit)."""
+        assert self._finder is not None
         limit = self.settings.max_occurrences_per_document
+        occurrences = len(self._finder.find(document.to_engine()))
+        if occurrences > limit:
+            place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
+            raise Refused(
+                "invalid",
+                f"{place}: document {document.doc_id!r} has {occurrences} occurrences; "
+                f"the limit is {limit}",
+                limit="max_occurrences_per_document",
+                **where,
+            )
+        return occurrences
+
+    def _store(self, group: list[tuple[dict[str, Any], InputDocument]]) -> None:
+        if self.single_writer:  # counted now, inserted in `_finish`'s short transaction
+            self._counted.extend((where, doc, self._count(where, doc)) for where, doc in group)
+            return
+        assert self._sink is not None
         for where, document in group:
-            occurrences = len(self._finder.find(document.to_engine()))
-            if occurrences > limit:
-                place = f"line {where['line']}" if "line" in where else f"document {where['index']}"
-                raise Refused(
-                    "invalid",
-                    f"{place}: document {document.doc_id!r} has {occurrences} occurrences; "
-                    f"the limit is {limit}",
-                    limit="max_occurrences_per_document",
-                    **where,
-                )
-            self._sink.add(document, occurrences)
+            self._sink.add(document, self._count(where, document))
 
     async def _finish(self) -> Batch:
         await self._store_group()
+        if self.single_writer:
+            if not self._counted:
+                raise Refused("invalid", "the batch has no documents; send at least one")
+            return await run_in_threadpool(self._insert_counted)
         if self._sink is None or self._sink.count == 0:
             raise Refused("invalid", "the batch has no documents; send at least one")
         digest = self.digest.hexdigest()
@@ -478,3 +503,21 @@ class Intake:
             return sink.close(digest, database_now(self.session))
 
         return await run_in_threadpool(close)
+
+    def _insert_counted(self) -> Batch:
+        """The write transaction of a single-writer database: the batch row, the documents
+        counted before it began (again only if the inventory changed meanwhile), chunks.
+        It ends in this same call, so the lock is never held across a wait for a thread."""
+        assert self._opened is not None
+        try:
+            recount = self._start_batch(*self._opened)
+            assert self._sink is not None
+            counted, self._counted = self._counted, []
+            for where, document, occurrences in counted:
+                self._sink.add(document, self._count(where, document) if recount else occurrences)
+            batch = self._sink.close(self.digest.hexdigest(), database_now(self.session))
+            self.session.commit()
+        except BaseException:
+            self.session.rollback()
+            raise
+        return batch

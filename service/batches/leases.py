@@ -29,6 +29,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.batches.repository import finish_if_complete, mark_running
 from service.store.clock import database_now
+from service.store.database import read_only
 from service.store.models import Batch, BatchChunk, BatchDocument, BatchResult
 
 
@@ -53,12 +54,22 @@ class Claim:
     options: dict[str, Any] = field(default_factory=dict)
 
 
+def _due(now: datetime) -> Any:
+    return BatchChunk.state.in_(("pending", "leased")) & (BatchChunk.available_at <= now)
+
+
+def chunk_due(session: Session) -> bool:
+    """Whether some chunk is due for a claim (a read: an idle poll writes nothing)."""
+    now = database_now(session)
+    return session.scalar(select(BatchChunk.id).where(_due(now)).limit(1)) is not None
+
+
 def claim_chunk(session: Session, owner: str, lease_seconds: float) -> Claim | None:
     """Lease the next due chunk to `owner`, or None when there is nothing to do."""
     now = database_now(session)
     chunk = session.scalars(
         select(BatchChunk)
-        .where(BatchChunk.state.in_(("pending", "leased")), BatchChunk.available_at <= now)
+        .where(_due(now))
         .order_by(BatchChunk.id)
         .limit(1)
         .with_for_update(skip_locked=True)
@@ -89,7 +100,13 @@ def claim_chunk(session: Session, owner: str, lease_seconds: float) -> Claim | N
 
 def claim_next(sessions: sessionmaker[Session], owner: str, lease_seconds: float) -> Claim | None:
     """Lease the next due chunk and mark its batch running, in two short transactions
-    (the batch row is never locked after a chunk row, so no deadlock with `hold_lease`)."""
+    (the batch row is never locked after a chunk row, so no deadlock with `hold_lease`).
+    Whether anything is due is read first, so polling an empty queue takes no write lock."""
+    with read_only(sessions)() as session:
+        due = chunk_due(session)
+        session.rollback()
+    if not due:
+        return None
     with sessions.begin() as session:
         claim = claim_chunk(session, owner, lease_seconds)
     if claim is not None:

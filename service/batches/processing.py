@@ -43,6 +43,7 @@ from service.batches.taggers import Tagger
 from service.config import Settings
 from service.engine import EngineError
 from service.store.clock import database_now
+from service.store.database import read_only
 
 log = logging.getLogger(__name__)
 
@@ -105,6 +106,7 @@ class ChunkProcessor:
     ) -> None:
         self.settings = settings
         self.sessions = sessions
+        self.reads = read_only(sessions)
         self.tagger = tagger
         self.stop = stop
         self.retry = retry
@@ -128,7 +130,7 @@ class ChunkProcessor:
         return outcome
 
     def _run(self, claim: Claim, keeper: LeaseKeeper) -> Outcome:
-        with self.sessions() as session:
+        with self.reads() as session:  # no write lock while reading: the lease guards them
             documents = pending_documents(session, claim)
             session.rollback()
         if claim.attempts == 1 and documents:

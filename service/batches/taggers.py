@@ -15,6 +15,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.batches.leases import Claim
 from service.config import Settings
 from service.engine import Document, DocumentResult
+from service.store.database import read_only
 from service.tagging.engines import EngineCache, Pin, PinnedEngine, shared_engines, tag_pinned
 
 
@@ -34,7 +35,9 @@ class EngineTagger:
         engines: EngineCache | None = None,
     ) -> None:
         self.settings = settings
-        self.sessions = sessions
+        # The engine only reads (inventory snapshot, evidence); building one encodes for
+        # seconds, which must not hold SQLite's one write lock.
+        self.sessions = read_only(sessions)
         self.engines = engines or shared_engines()
 
     def preload(self) -> None:

@@ -40,6 +40,9 @@ class DatabaseNotMigrated(RuntimeError):
 
 
 _WRITE_GATES: weakref.WeakKeyDictionary[Engine, threading.Lock] = weakref.WeakKeyDictionary()
+_READ_ONLY: weakref.WeakKeyDictionary[sessionmaker[Session], sessionmaker[Session]] = (
+    weakref.WeakKeyDictionary()
+)
 
 
 def write_gate(engine: Engine) -> threading.Lock | None:
@@ -140,10 +143,27 @@ def session_factory(url: str) -> sessionmaker[Session]:
     return sessionmaker(engine_for(url), expire_on_commit=False)
 
 
+def read_only(sessions: sessionmaker[Session]) -> sessionmaker[Session]:
+    """`sessions` for work that only reads: on SQLite their transactions are deferred
+    (no BEGIN IMMEDIATE, no place at the write gate), so under WAL they read the last
+    commit without waiting for a writer and never make a writer wait."""
+    bind = sessions.kw.get("bind")
+    if not isinstance(bind, Engine):
+        raise TypeError("read_only needs sessions bound to one engine")
+    if bind.get_execution_options().get(READ_ONLY_OPTION):
+        return sessions
+    reads = _READ_ONLY.get(sessions)
+    if reads is None:  # one per factory: a worker asks on every poll
+        reads = sessionmaker(
+            **{**sessions.kw, "bind": bind.execution_options(**{READ_ONLY_OPTION: True})}
+        )
+        _READ_ONLY[sessions] = reads
+    return reads
+
+
 def read_session_factory(url: str) -> sessionmaker[Session]:
     """Sessions for requests that only read (on SQLite they skip the write lock)."""
-    engine = engine_for(url).execution_options(**{READ_ONLY_OPTION: True})
-    return sessionmaker(engine, expire_on_commit=False)
+    return read_only(session_factory(url))
 
 
 @contextmanager

@@ -6,9 +6,10 @@ from __future__ import annotations
 import pytest
 from sqlalchemy import func, select
 
-from service.engine import Evidence
-from service.store.database import session_scope
+from service.engine import Evidence, OccurrenceFinder
+from service.store.database import engine_for, session_scope, write_gate
 from service.store.evidence import add_evidence
+from service.store.inventories import edit_inventory
 from service.store.models import Batch, BatchChunk, BatchDocument
 from tests.pipeline import documents, ndjson
 from tests.problem_details import assert_problem
@@ -252,3 +253,71 @@ def test_every_limit_is_named_and_nothing_is_stored(
     problem = assert_problem(response, status)
     assert problem["limit"] == limit
     assert _stored(pipe.settings) == (0, 0, 0)
+
+
+def _document_counts(settings, batch_id: str) -> list[int]:
+    with session_scope(settings) as session:
+        return list(
+            session.scalars(
+                select(BatchDocument.occurrence_count)
+                .where(BatchDocument.batch_id == batch_id)
+                .order_by(BatchDocument.position)
+            )
+        )
+
+
+def _watch_counting(monkeypatch, settings, also=None) -> list[bool]:
+    """Record, at each occurrence count, whether this process's SQLite write gate is held."""
+    gate = write_gate(engine_for(settings.database_url))
+    assert gate is not None
+    held: list[bool] = []
+    find = OccurrenceFinder.find
+
+    def watched(finder, document):
+        held.append(gate.locked())
+        if also is not None:
+            also(len(held))
+        return find(finder, document)
+
+    monkeypatch.setattr(OccurrenceFinder, "find", watched)
+    return held
+
+
+@pytest.mark.parametrize("database_url", ["sqlite"], indirect=True)
+def test_on_sqlite_documents_are_counted_before_the_write_lock_is_taken(pipeline, monkeypatch):
+    docs = documents(5)
+    held = _watch_counting(monkeypatch, pipeline.settings)
+    as_json = pipeline.submit(docs)
+    as_ndjson = pipeline.client.post(
+        "/v1/batches",
+        content=ndjson({"inventory": "tiny-shop"}, *docs),
+        headers={**pipeline.ingest, **NDJSON, "Idempotency-Key": "counted-first"},
+    )
+    assert as_ndjson.status_code == 202, as_ndjson.text
+    assert len(held) == 2 * len(docs) and not any(held)
+    first = _document_counts(pipeline.settings, as_json["id"])
+    assert first == _document_counts(pipeline.settings, as_ndjson.json()["id"])
+    assert sum(first) == as_json["counts"]["occurrences"] and min(first) >= 1
+
+
+@pytest.mark.parametrize("database_url", ["sqlite"], indirect=True)
+def test_on_sqlite_a_new_inventory_version_while_counting_means_a_recount(pipeline, monkeypatch):
+    docs = documents(4)
+    before = _document_counts(pipeline.settings, pipeline.submit(docs)["id"])
+
+    def drop_mouse(document):
+        document["terms"] = [t for t in document["terms"] if t["term"] != "mouse"]
+
+    def edit_once(calls: int) -> None:
+        if calls == 1:  # the submission is being counted with version 1
+            with session_scope(pipeline.settings) as session:
+                edit_inventory(session, pipeline.team_id, "tiny-shop", drop_mouse)
+
+    held = _watch_counting(monkeypatch, pipeline.settings, also=edit_once)
+    batch = pipeline.submit(docs)
+    assert batch["inventory"]["version"] == 2
+    assert not any(held[: len(docs)]) and all(held[len(docs) :])  # counted, then recounted
+    monkeypatch.undo()
+    after = _document_counts(pipeline.settings, batch["id"])
+    assert after == _document_counts(pipeline.settings, pipeline.submit(docs)["id"])
+    assert sum(after) < sum(before)  # "mouse" no longer counts

@@ -7,9 +7,10 @@ import threading
 import time
 
 import pytest
-from sqlalchemy import func, insert, select
+from sqlalchemy import event, func, insert, select
 from sqlalchemy.exc import IntegrityError
 
+from service.batches import processing
 from service.batches.heartbeat import LeaseKeeper
 from service.batches.leases import (
     LeaseLost,
@@ -19,8 +20,9 @@ from service.batches.leases import (
     release_chunk,
     write_document_results,
 )
-from service.store.database import session_factory
+from service.store.database import engine_for, session_factory, write_gate
 from service.store.models import BatchChunk, BatchResult
+from service.tagging.engines import EngineCache
 from tests.pipeline import assert_same_results, documents
 
 
@@ -151,3 +153,58 @@ def test_concurrent_claimers_skip_each_others_rows(make_pipeline, database_url):
     first_session.close()
     assert first is not None and claimed[0] is not None
     assert claimed[0].chunk_id != first.chunk_id
+
+
+def _begins_immediate(url: str) -> list[str]:
+    """The write transactions (BEGIN IMMEDIATE) this process starts on the SQLite `url`."""
+    begun: list[str] = []
+
+    def record(_conn, _cursor, statement, *_args) -> None:
+        if statement.startswith("BEGIN IMMEDIATE"):
+            begun.append(statement)
+
+    event.listen(engine_for(url), "before_cursor_execute", record)
+    return begun
+
+
+@pytest.mark.parametrize("database_url", ["sqlite"], indirect=True)
+def test_the_worker_reads_its_documents_and_engine_without_the_write_lock(
+    make_pipeline, monkeypatch
+):
+    pipe = make_pipeline(chunk_size=10)
+    docs = documents(3)
+    batch = pipe.submit(docs)
+    gate = write_gate(engine_for(pipe.settings.database_url))
+    assert gate is not None
+    held: dict[str, list[bool]] = {"documents": [], "engine": []}
+    read_documents = processing.pending_documents
+    find_engine = EngineCache.engine
+
+    def documents_read(session, claim):
+        found = read_documents(session, claim)
+        held["documents"].append(gate.locked())  # a write session would hold it by now
+        return found
+
+    def engine_found(cache, session, settings, pin):
+        found = find_engine(cache, session, settings, pin)
+        held["engine"].append(gate.locked())
+        return found
+
+    monkeypatch.setattr(processing, "pending_documents", documents_read)
+    monkeypatch.setattr(EngineCache, "engine", engine_found)
+    assert pipe.worker().run_until_idle() >= 1
+    assert held == {"documents": [False], "engine": [False]}
+    assert_same_results(pipe.all_results(batch["id"]), pipe.sync_results(docs))
+
+
+@pytest.mark.parametrize("database_url", ["sqlite"], indirect=True)
+def test_an_idle_worker_polls_without_a_write_transaction(make_pipeline):
+    pipe = make_pipeline()
+    worker = pipe.worker()
+    begun = _begins_immediate(pipe.settings.database_url)
+    assert not worker.process_one_chunk() and not worker.deliver_one_webhook()
+    assert begun == []
+    pipe.submit(documents(1))
+    begun.clear()
+    assert worker.process_one_chunk()  # claims, then writes: write transactions again
+    assert begun

@@ -5,7 +5,7 @@ so delivery is at least once; receivers de-duplicate on the batch id."""
 from __future__ import annotations
 
 from dataclasses import dataclass
-from datetime import timedelta
+from datetime import datetime, timedelta
 from typing import Any
 
 from sqlalchemy import select
@@ -27,12 +27,22 @@ class DueWebhook:
     body: dict[str, Any]
 
 
+def _due(now: datetime) -> Any:
+    return (Batch.webhook_state == "pending") & (Batch.webhook_next_attempt_at <= now)
+
+
+def webhook_due(session: Session) -> bool:
+    """Whether some delivery is due (a read: checking an empty queue writes nothing)."""
+    now = database_now(session)
+    return session.scalar(select(Batch.id).where(_due(now)).limit(1)) is not None
+
+
 def claim_due_webhook(session: Session, claim_seconds: float) -> DueWebhook | None:
     """The oldest due delivery, pushed `claim_seconds` ahead so no other worker takes it."""
     now = database_now(session)
     batch = session.scalars(
         select(Batch)
-        .where(Batch.webhook_state == "pending", Batch.webhook_next_attempt_at <= now)
+        .where(_due(now))
         .order_by(Batch.webhook_next_attempt_at)
         .limit(1)
         .with_for_update(skip_locked=True)

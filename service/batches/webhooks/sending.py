@@ -21,9 +21,11 @@ from service.batches.webhooks.deliveries import (
     DueWebhook,
     claim_due_webhook,
     record_webhook_attempt,
+    webhook_due,
 )
 from service.batches.webhooks.signatures import signature_headers
 from service.batches.webhooks.urls import WebhookUrlRefused, check_url
+from service.store.database import read_only
 
 
 @dataclass(frozen=True)
@@ -125,7 +127,13 @@ def deliver_next(
     allow_private: bool,
 ) -> tuple[DueWebhook, str] | None:
     """Claim the oldest due delivery, POST it, record the attempt; the delivery and its
-    outcome (delivered, retry, failed), or None when nothing is due."""
+    outcome (delivered, retry, failed), or None when nothing is due (read first, so an
+    empty queue takes no write lock)."""
+    with read_only(sessions)() as session:
+        due_now = webhook_due(session)
+        session.rollback()
+    if not due_now:
+        return None
     with sessions.begin() as session:
         due = claim_due_webhook(session, claim_seconds=timeout * 3 + 5)
     if due is None:
