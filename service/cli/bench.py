@@ -24,7 +24,7 @@ DEFAULT_DOCS = 300
 DEFAULT_SYNC_REQUESTS = 200
 DEFAULT_ADMIN_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"
 JSON_KEYS = (
-    "occurrences", "documents", "windows", "threads", "quantized",
+    "occurrences", "documents", "joined", "chars_per_document", "windows", "threads", "quantized",
     "ceiling_per_s", "engine_per_s", "service_sqlite_per_s", "service_pg_1w_per_s",
     "service_pg_2w_per_s", "naive_per_s", "engine_vs_ceiling", "service_sqlite_vs_ceiling",
     "engine_vs_naive", "ceiling_per_cpu_s", "engine_per_cpu_s", "naive_per_cpu_s",
@@ -42,6 +42,9 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     )
     parser.add_argument("--docs", type=int, default=DEFAULT_DOCS,
                         help=f"documents in the corpus (default {DEFAULT_DOCS})")
+    parser.add_argument("--join", type=_positive, default=1, metavar="K",
+                        help="join K demo documents of one kind into each document, for "
+                             "help-page-length documents (default 1: as they are)")
     parser.add_argument("--json", action="store_true", help="end with one line of JSON figures")
     parser.add_argument("--corpus", type=Path, default=Path("demo_corpus"),
                         help="directory with inventory.json and documents.jsonl")
@@ -52,6 +55,13 @@ def add_parser(commands: argparse._SubParsersAction) -> None:
     parser.add_argument("--no-service", action="store_true",
                         help="in-process runs only (no API or worker processes)")
     parser.set_defaults(func=run)
+
+
+def _positive(value: str) -> int:
+    number = int(value)
+    if number < 1:
+        raise argparse.ArgumentTypeError(f"{value} is not a positive whole number")
+    return number
 
 
 def percentile(values: Sequence[float], share: float) -> float:
@@ -91,7 +101,7 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     from service.bench.corpus import load_corpus
     from service.tagging.engines import build_disambiguator
 
-    corpus = load_corpus(args.corpus, args.docs)
+    corpus = load_corpus(args.corpus, args.docs, join=args.join)
     # the shipped engine, built by the one factory; prototypes built before any timing
     engine = build_disambiguator(settings, corpus.inventory)
     encoder = engine.encoder
@@ -99,10 +109,12 @@ def run(args: argparse.Namespace, settings: Settings) -> int:
     figures: dict[str, Any] = dict.fromkeys(JSON_KEYS)
     import torch
 
-    figures.update(occurrences=occurrences, documents=len(corpus.documents), windows=len(texts),
+    figures.update(occurrences=occurrences, documents=len(corpus.documents), joined=corpus.joined,
+                   chars_per_document=round(corpus.chars_per_document), windows=len(texts),
                    threads=torch.get_num_threads(), quantized=settings.quantize_encoder)
     notes: list[str] = []
-    print(f"bench: {len(corpus.documents)} documents, {occurrences} occurrences, "
+    print(f"bench: {len(corpus.documents)} documents ({corpus.joined} demo document(s) each, "
+          f"{corpus.chars_per_document:.0f} characters on average), {occurrences} occurrences, "
           f"{len(texts)} windows, {torch.get_num_threads()} encoder thread(s)", file=sys.stderr)
     list(engine.tag(corpus.documents[:4]))  # first calls allocate; keep them out of the timing
 
@@ -204,7 +216,9 @@ def print_table(figures: dict[str, Any], notes: list[str]) -> None:
           f"sync POST /v1/disambiguate p50 {figures['sync_p50_ms']} ms, "
           f"p95 {figures['sync_p95_ms']} ms")
     print(f"{figures['occurrences']} occurrences in {figures['documents']} documents "
-          f"({figures['windows']} windows), {figures['threads']} encoder thread(s), "
+          f"({figures['joined']} demo document(s) joined per document, "
+          f"{figures['chars_per_document']} characters each on average; "
+          f"{figures['windows']} windows), {figures['threads']} encoder thread(s), "
           f"int8 encoder: {figures['quantized']}")
     for note in notes:
         print(note)

@@ -67,7 +67,7 @@ def build_disambiguator(
     encoder: ContextEncoder | None = None,
     finder: OccurrenceFinder | None = None,
     prototypes: PrototypeBook | None = None,
-    erasure_for: frozenset[Status] = frozenset({"review"}),
+    erasure_for: frozenset[Status] = frozenset(),
 ) -> Disambiguator:
     """The engine users run, for one inventory version and its evidence.
 
@@ -194,9 +194,13 @@ class EngineCache:
             self._finders.move_to_end(key)
             return finder
 
-    def engine(self, session: Session, settings: Settings, pin: Pin) -> PinnedEngine:
-        """The engine for `pin`, building or advancing one as needed (reads via `session`)."""
-        spec = self.spec(session, settings.database_url, pin.inventory_id, pin.version)
+    def engine(
+        self, session: Session, settings: Settings, pin: Pin, spec: InventorySpec | None = None
+    ) -> PinnedEngine:
+        """The engine for `pin`, building or advancing one as needed (reads via `session`).
+        `spec`: the pinned version's spec when the caller already has it from `spec()`."""
+        if spec is None:
+            spec = self.spec(session, settings.database_url, pin.inventory_id, pin.version)
         encoder = self.encoder(settings)
         base: _Base = (
             settings.database_url,

@@ -3,11 +3,14 @@ are cached per process and advanced incrementally when evidence grows."""
 
 from __future__ import annotations
 
+from typing import Any
+
 from service.engine import Evidence
 from service.store.database import session_scope
 from service.store.evidence import add_evidence, evidence_watermark
 from service.store.inventories import get_inventory
 from service.tagging.engines import Pin, shared_engines
+from tests.conftest import bearer
 from tests.pipeline import documents
 from tests.problem_details import assert_problem
 
@@ -45,6 +48,37 @@ def test_results_follow_the_result_format(pipeline):
         assert result["status"] in ("assigned", "review", "abstained")
         assert (result["sense_id"] is None) == (result["status"] == "abstained")
         assert result["rationale"]["attention"]["method"] == "last-layer-head-average"
+
+
+def test_review_results_carry_no_erasure(pipeline):
+    """Erasure (one forward pass per context word) is only for callers that ask for it; the
+    synchronous endpoint's review items get attention and nearest evidence, erasure null."""
+    admin = bearer(pipeline.keys["admin"])
+    # A fixed threshold of 1.0 sends every assigned sense to review.
+    settings = {"settings": {"review_threshold": 1.0, "target_accuracy": None}}
+    patched = pipeline.client.patch("/v1/inventories/tiny-shop", json=settings, headers=admin)
+    assert patched.status_code == 200, patched.text
+    results = pipeline.sync_results(documents(4), rationale=True)
+    review = [r for r in results if r["status"] == "review"]
+    assert review, [r["status"] for r in results]
+    for result in review:
+        assert result["rationale"]["attention"] is not None
+        assert result["rationale"]["erasure"] is None
+
+
+def test_a_sync_request_reads_the_inventory_version_once(pipeline, monkeypatch):
+    """The route hands the spec it read to the engine cache instead of it being read again."""
+    engines = shared_engines()
+    reads: list[int] = []
+    original = engines.spec
+
+    def counted(*args: Any, **kwargs: Any) -> Any:
+        reads.append(1)
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(engines, "spec", counted)
+    assert pipeline.sync_results(documents(1))
+    assert len(reads) == 1
 
 
 def test_sync_limits(make_pipeline):

@@ -107,7 +107,7 @@ def _tag(
             )
 
     def engine() -> PinnedEngine:
-        found = engines.engine(session, settings, pin)
+        found = engines.engine(session, settings, pin, spec)
         session.rollback()  # hold no transaction (on SQLite: no write lock) while tagging
         return found
 
