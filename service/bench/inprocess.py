@@ -41,7 +41,7 @@ def engine_windows(engine: Disambiguator, documents: Sequence[Document]) -> tupl
     texts: list[str] = []
     occurrences = 0
     for lo in range(0, len(documents), engine.group_size):
-        spans = []
+        spans: list[tuple[str, int, int]] = []
         for document in documents[lo : lo + engine.group_size]:
             fields = dict(document.fields)
             spans.extend(

@@ -235,7 +235,8 @@ def make_engine(
 ) -> Disambiguator:
     """The one place the benchmark builds the engine: the same public constructor `tag`, the
     API and the worker use (the engine factory of service/tagging can replace this line)."""
-    prior = any(term.pos in options.sense_prior_pos for term in inventory.terms)
+    prior = any(term.pos is not None and term.pos in options.sense_prior_pos
+                for term in inventory.terms)
     return Disambiguator(encoder, inventory, evidence, evidence_vectors=evidence_vectors,
                          sense_prior=prior, evidence_prior=options.evidence_prior,
                          alignment_head=options.head,
@@ -527,7 +528,7 @@ def _share_at(curve: Sequence[Any], target: float) -> dict[str, float] | None:
 
 def _apply_threshold(
     held_curve: Sequence[Any], target: float, confidence: np.ndarray, hit: np.ndarray
-) -> dict[str, float] | None:
+) -> dict[str, float | None] | None:
     """The threshold that reached `target` on held-out training documents, applied to the
     test set: the share it assigns there and that share's accuracy (an honest estimate,
     unlike a threshold read off the test curve itself)."""

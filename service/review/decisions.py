@@ -322,7 +322,7 @@ def _answers_by_tagging(
         if stored is not None:
             fields = tuple((str(name), str(text)) for name, text in stored.fields)
             documents.append(Document(doc_id=f"{batch_id}/{document_id}", fields=fields))
-    found = {}
+    found: dict[tuple[str, str, int, int], Assignment] = {}
     for tagged in tag_pinned(get_engine, documents, rationale=False):
         for occurrence in tagged.occurrences:
             found[(tagged.document_id, occurrence.field, occurrence.start, occurrence.end)] = (
@@ -334,19 +334,19 @@ def _answers_by_tagging(
                     occurrence.candidates,
                 )
             )
-    answers = {}
+    answers: dict[int, Assignment] = {}
     for item in items:
         row = rows[item.id]
         if row is None:
             continue
-        key = (
+        found_key = (
             f"{item.batch_id}/{item.document_id}",
             row.field,
             row.result["start"],
             row.result["end"],
         )
-        if key in found:
-            answers[item.id] = found[key]
+        if found_key in found:
+            answers[item.id] = found[found_key]
     return answers
 
 

@@ -191,12 +191,13 @@ def item_view(session: Session, settings: Settings, item: ReviewItem) -> ItemVie
     ordered = sorted(senses, key=lambda s: -probabilities.get(s.sense_id, 0.0))
     for number, sense in enumerate(ordered, start=1):
         before = term_text = after = ""
-        kind, score = "none", None
+        kind = "none"
+        similarity_score: float | None = None
         if sense.sense_id in nearest:
             record = session.get(EvidenceRecord, nearest[sense.sense_id][0])
             if record is not None:
                 before, term_text, after = snippet(record.text, record.start, record.end)
-                kind, score = "evidence", nearest[sense.sense_id][1]
+                kind, similarity_score = "evidence", nearest[sense.sense_id][1]
         elif sense.examples:
             before, kind = sense.examples[0], "example"
         candidates.append(
@@ -210,7 +211,7 @@ def item_view(session: Session, settings: Settings, item: ReviewItem) -> ItemVie
                 evidence_term=term_text,
                 evidence_after=after,
                 evidence_kind=kind,
-                evidence_similarity=score,
+                evidence_similarity=similarity_score,
             )
         )
     return ItemView(

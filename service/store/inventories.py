@@ -162,9 +162,9 @@ def _rewrite_terms(
     }
     session.execute(delete(Term).where(Term.inventory_id == inventory.id, Term.folded.in_(keys)))
     session.flush()
-    following = session.scalar(
+    following: int = session.scalar(
         select(func.coalesce(func.max(Term.position), -1)).where(Term.inventory_id == inventory.id)
-    )
+    ) or 0
     for term in terms:
         key = fold(term.term)
         if key not in old:
@@ -279,8 +279,8 @@ def edit_inventory(
         raise InventoryInvalid(problems)
     header = parse_inventory_document({**document, "terms": []}, version=version)
     changed_specs = [parse_term(terms[i]) for i in changed]
-    for i, spec in zip(changed, changed_specs, strict=True):
-        terms[i] = term_to_document(spec)
+    for i, term_spec in zip(changed, changed_specs, strict=True):
+        terms[i] = term_to_document(term_spec)
     snapshot = {**spec_to_document(header), "terms": terms}
     inventory.version = version
     _rewrite_terms(session, inventory, changed_specs, keys)

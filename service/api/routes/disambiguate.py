@@ -56,7 +56,7 @@ def _parse(raw: bytes, settings: Settings) -> tuple[str, list[InputDocument], di
     documents: list[InputDocument] = []
     seen: set[str] = set()
     for index, item in enumerate(items):
-        where = {"index": index, "pointer": f"/documents/{index}"}
+        where: dict[str, Any] = {"index": index, "pointer": f"/documents/{index}"}
         try:
             document = parse_document(item, max_document_bytes=settings.max_document_bytes)
         except DocumentInvalid as exc:
