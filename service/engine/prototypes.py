@@ -575,15 +575,25 @@ class PrototypeBook:
         scored: np.ndarray = np.asarray(similarities, np.float64) - self.penalty(term)
         if not self.sentences:
             return scored
+        total: np.ndarray = scored + self.sentence_channel(term, sentences).reshape(scored.shape)
+        return total
+
+    def sentence_channel(self, term: str, sentences: np.ndarray | None) -> np.ndarray:
+        """(n, senses) sentence_weight times the cosines of window sentence vectors (n, dim)
+        to the term's sentence prototypes; zeros while the channel is off."""
+        if not self.sentences:
+            return np.zeros((1 if sentences is None else len(np.atleast_2d(sentences)),
+                             len(self.senses(term))))
         if sentences is None:
             raise ValueError(
                 "the sentence channel is on (sentence_weight > 0): scores need the "
                 "occurrences' window sentence vectors"
             )
         rows = np.asarray(sentences, np.float64).reshape(-1, self.dimension)
-        channel = rows @ self.sentence_matrix(term).astype(np.float64).T
-        scored = scored + self.sentence_weight * channel.reshape(scored.shape)
-        return scored
+        channel: np.ndarray = self.sentence_weight * (
+            rows @ self.sentence_matrix(term).astype(np.float64).T
+        )
+        return channel
 
     def contextual_items(self, term: str) -> tuple[np.ndarray, list[str], list[ItemKind]]:
         """(vectors, sense ids, kinds) of the term's labeled occurrences: example

@@ -284,7 +284,8 @@ def _term(lemma: str) -> str:
 @dataclass
 class EngineDecisions:
     """Per instance: candidate keys in inventory order, the engine's similarity row (after
-    document consistency), its log prior row, probabilities, and the sense it chose."""
+    document consistency, plus the sentence channel when it is on), its log prior row,
+    probabilities, and the sense it chose."""
 
     candidates: list[list[str]]
     similarities: list[np.ndarray]
@@ -341,8 +342,12 @@ def engine_decisions(
                              document_id=test[i].doc) for i in answered]
         vectors = test_vectors[answered]
         rows = engine.similarities(queries, engine.align(vectors))
-        results = engine.classify_vectors(
-            queries, vectors, None if channel is None else channel([test[i] for i in answered]))
+        sentences = None if channel is None else channel([test[i] for i in answered])
+        results = engine.classify_vectors(queries, vectors, sentences)
+        if sentences is not None:  # the temperature is fitted on what the softmax adds up
+            aligned = engine.align(sentences)
+            rows = [row + engine.prototypes.sentence_channel(query.term, window)[0]
+                    for query, row, window in zip(queries, rows, aligned, strict=True)]
         for i, query, row, result in zip(answered, queries, rows, results, strict=True):
             keys = list(engine.prototypes.senses(query.term))
             by_id = {c.sense_id: c.probability for c in result.candidates}
