@@ -82,8 +82,9 @@ class EngineOptions:
     # default (docs/measurements.md, "Trust").
     evidence_prior: float = 4.0
     # The sentence channel's weight (InventorySettings.sentence_weight) of the WordNet
-    # inventories: 0, chosen on SemCor dev, where the channel was neutral overall and cost
-    # verbs (docs/measurements.md, "Sentence channel"); domain inventories keep the default.
+    # inventories: 0, chosen on SemCor dev, where weights 0.5-1 gained under half a point
+    # (within noise) and 2 lost (docs/measurements.md, "Sentence channel"); domain
+    # inventories keep the default.
     sentence_weight: float = 0.0
 
     def to_json(self) -> dict[str, Any]:
