@@ -404,7 +404,8 @@ class ContextEncoder:
         vectors, _, sentences = self._encode_planned(
             windows, placed, details=False, sentences=True
         )
-        assert sentences is not None
+        if sentences is None:  # cannot happen: sentences=True always pools them
+            raise RuntimeError("window sentence vectors were not pooled")
         return vectors, sentences
 
     def encode_spans_detailed(self, spans: Sequence[tuple[str, int, int]]) -> list[SpanEncoding]:
