@@ -574,7 +574,9 @@ def speed(cache: Path) -> None:
     chosen_texts = set(texts)
     wanted = sorted({setup.term_of(i) for i in setup.dev if i.text in chosen_texts})
     inventory = InventorySpec(
-        "semcor-dev", 1, tuple(setup.spec[t] for t in wanted), settings=InventorySettings()
+        "semcor-dev", 1, tuple(setup.spec[t] for t in wanted),
+        # token channel only: classify_vectors below has span vectors, no window vectors
+        settings=InventorySettings(sentence_weight=0.0),
     )
     started = time.time()
     disambiguator = Disambiguator(encoder, inventory)
@@ -660,7 +662,8 @@ def semeval_checks(cache: Path) -> None:
         test_vectors = encoder.encode_spans([(i.text, i.start, i.end) for i in scored])
         np.savez(stored, evidence=evidence_vectors, test=test_vectors)
         print(f"encoded in {time.time() - started:.0f}s")
-    inventory = InventorySpec("semeval-wordnet", 1, tuple(terms.values()))
+    inventory = InventorySpec("semeval-wordnet", 1, tuple(terms.values()),
+                              settings=InventorySettings(sentence_weight=0.0))
     disambiguator = Disambiguator(encoder, inventory, evidence, evidence_vectors=evidence_vectors)
     queries = [
         SpanQuery(i.text, i.start, i.end, terms[(i.lemma.lower(), i.pos)].term, document_id=i.doc)

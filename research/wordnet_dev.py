@@ -10,6 +10,10 @@ SemEval-2013 is never read here. Vectors come from the
 benchmark's cache, so a run only builds prototypes and scores.
 
     .venv/bin/python research/wordnet_dev.py --head service/engine/heads/minilm-l6-semcor.npz
+    .venv/bin/python research/wordnet_dev.py --sentence-weight 0 --sentence-weight 1
+
+With a sentence weight above 0 every instance's window sentence vector is encoded
+once (and cached) for the sentence channel.
 """
 
 from __future__ import annotations
@@ -28,10 +32,12 @@ from service.engine.lexicon import open_wordnet
 from service.evaluation.baselines import most_frequent_sense, training_sense_counts
 from service.evaluation.benchmark import (
     EngineOptions,
+    encode_instance_windows,
     encode_instances,
     f1_table,
     flatten,
     score_engine,
+    window_lookup,
 )
 from service.evaluation.splits import is_held_out
 from service.evaluation.vector_store import CachingEncoder
@@ -48,6 +54,8 @@ def main() -> int:
     parser.add_argument("--pos", default="nvar", help="parts of speech of dev instances")
     parser.add_argument("--no-prior", action="store_true")
     parser.add_argument("--max-dev", type=int, help="first N dev instances")
+    parser.add_argument("--sentence-weight", type=float, action="append", default=[],
+                        help="the sentence channel's weight (repeatable; default 0)")
     args = parser.parse_args()
 
     settings = load_settings()
@@ -72,14 +80,20 @@ def main() -> int:
            if (k := most_frequent_sense(reader, counts, i.lemma, i.pos)) is not None}
     items = CachingEncoder(raw, settings.cache_dir)
     heads = [None, *(load_head(path, raw.model_id) for path in args.head)]
+    weights = args.sentence_weight or [0.0]
+    windows = None
+    if any(weight > 0 for weight in weights):
+        windows = window_lookup(instances,
+                                encode_instance_windows(raw, instances, settings.cache_dir))
     out = {"n": len(dev_idx), "mfs": f1_table(dev[0], mfs)}
-    for head in heads:
+    for head, weight in [(head, weight) for head in heads for weight in weights]:
         prior = "" if args.no_prior else EngineOptions.sense_prior_pos
-        options = EngineOptions(sense_prior_pos=prior, head=head)
+        options = EngineOptions(sense_prior_pos=prior, head=head, sentence_weight=weight)
         run = score_engine(items, reader, pick(fit_idx), pick(cal_idx), pick(train_idx), dev,
-                           options)
+                           options, windows)
         table = f1_table(dev[0], run["decisions"].best())
         name = "no head" if head is None else f"{head.head_id}.v{head.version}"
+        name += f", sentence weight {weight:g}"
         out[name] = {"table": table, "temperature": run["temperature"]}
         print(name, {p: round(100 * v["f1"], 2) for p, v in table.items()},
               "T", round(run["temperature"], 4), file=sys.stderr, flush=True)

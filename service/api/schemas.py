@@ -7,7 +7,11 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, PlainSerializer
 
-from service.engine.types import ABSTAIN_THRESHOLD_BOUNDS, REVIEW_THRESHOLD_BOUNDS
+from service.engine.types import (
+    ABSTAIN_THRESHOLD_BOUNDS,
+    REVIEW_THRESHOLD_BOUNDS,
+    SENTENCE_WEIGHT_BOUNDS,
+)
 from service.store.clock import rfc3339
 
 Timestamp = Annotated[datetime, PlainSerializer(rfc3339, return_type=str)]
@@ -62,6 +66,9 @@ class SettingsPatch(Strict):
     target_accuracy: float | None = Field(default=None, gt=0, lt=1)
     target_delta: float | None = Field(default=None, gt=0, lt=1)
     missing_sense_rate: float | None = Field(default=None, ge=0, lt=1)
+    sentence_weight: float | None = Field(
+        default=None, ge=SENTENCE_WEIGHT_BOUNDS[0], le=SENTENCE_WEIGHT_BOUNDS[1]
+    )
 
 
 class InventoryPatch(Strict):

@@ -13,7 +13,9 @@ in the spirit of the bi-encoder of Blevins & Zettlemoyer (2020) but with the
 encoder frozen. `AlignedEncoder` applies it to everything the engine encodes
 (occurrences, example sentences, evidence, erasure variants: `context`;
 glosses: `gloss`), so prototypes, similarities and rationales all live in the
-aligned space.
+aligned space. The sentence channel's vectors (window and gloss sentence
+vectors, prototypes.py) all pass through `context`: one map on both sides
+keeps them comparable with each other.
 
 A head file (.npz) holds the two matrices and a JSON header: format, head id,
 version, the encoder it was trained for, the training data's digest and
@@ -175,13 +177,29 @@ class AlignedEncoder:
     def encode_glosses(self, glosses: Sequence[tuple[str, str, Sequence[str]]]) -> np.ndarray:
         return self.head.gloss(self.encoder.encode_glosses(glosses))
 
+    def encode_spans_with_windows(
+        self, spans: Sequence[tuple[str, int, int]]
+    ) -> tuple[np.ndarray, np.ndarray]:
+        vectors, sentences = self.encoder.encode_spans_with_windows(spans)
+        return self.head.context(vectors), self.head.context(sentences)
+
+    def encode_gloss_sentences(
+        self, glosses: Sequence[tuple[str, str, Sequence[str]]]
+    ) -> np.ndarray:
+        return self.head.context(self.encoder.encode_gloss_sentences(glosses))
+
     def encode_spans_detailed(self, spans: Sequence[tuple[str, int, int]]) -> list[Any]:
         encodings: list[Any] = self.encoder.encode_spans_detailed(spans)
         if not encodings:
             return encodings
         vectors = self.head.context(np.stack([item.vector for item in encodings]))
-        return [replace(item, vector=vector) for item, vector in zip(encodings, vectors,
-                                                                      strict=True)]
+        aligned = []
+        for item, vector in zip(encodings, vectors, strict=True):
+            sentence = item.sentence
+            if sentence is not None:
+                sentence = self.head.context(sentence[None, :])[0]
+            aligned.append(replace(item, vector=vector, sentence=sentence))
+        return aligned
 
     def encode_erasures(self, window: Any, term_tokens: np.ndarray,
                         erased: Sequence[np.ndarray]) -> np.ndarray:

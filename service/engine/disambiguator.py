@@ -13,6 +13,11 @@ The sense prior from evidence counts is off by default (sense_prior=True turns
 it on): it gained inside SemCor but cost 1.5 points on SemEval-2013 and 2
 points on the demo inventory's inner split, so label frequencies are not
 trusted to match the documents being tagged (docs/measurements.md).
+
+With the inventory's `sentence_weight` above 0 every path that scores
+(documents, `classify_spans`, `classify_vectors`) also reads each occurrence's
+window sentence vector (prototypes.py, "sentence channel"); `classify_vectors`
+then needs those vectors handed in beside the span vectors.
 """
 
 from __future__ import annotations
@@ -133,6 +138,7 @@ class Disambiguator:
         *,
         prototypes: PrototypeBook | None = None,
         evidence_vectors: np.ndarray | None = None,
+        evidence_sentences: np.ndarray | None = None,
         consistency_weight: float = DEFAULT_CONSISTENCY_WEIGHT,
         sense_prior: bool = False,
         evidence_prior: float = DEFAULT_EVIDENCE_PRIOR,
@@ -153,6 +159,8 @@ class Disambiguator:
             encoder = AlignedEncoder(encoder, alignment_head)  # type: ignore[assignment]
             if evidence_vectors is not None:
                 evidence_vectors = alignment_head.context(evidence_vectors)
+            if evidence_sentences is not None:
+                evidence_sentences = alignment_head.context(evidence_sentences)
         self.encoder = encoder
         self.inventory = inventory
         self.finder = finder or OccurrenceFinder(inventory)
@@ -162,6 +170,7 @@ class Disambiguator:
                 inventory,
                 evidence,
                 evidence_vectors=evidence_vectors,
+                evidence_sentences=evidence_sentences,
                 finder=self.finder,
                 evidence_prior=evidence_prior,
             )
@@ -170,8 +179,18 @@ class Disambiguator:
                 raise InventoryError(
                     f"prototypes were built with {prototypes.model_id}, not {encoder.model_id}"
                 )
+            if prototypes.sentence_weight != inventory.settings.sentence_weight:
+                raise InventoryError(
+                    f"prototypes were built with sentence weight {prototypes.sentence_weight}, "
+                    f"the inventory asks for {inventory.settings.sentence_weight}"
+                )
             if len(evidence):
-                prototypes.add_evidence(evidence, vectors=evidence_vectors, encoder=encoder)
+                prototypes.add_evidence(
+                    evidence,
+                    vectors=evidence_vectors,
+                    sentence_vectors=evidence_sentences,
+                    encoder=encoder,
+                )
         self.prototypes = prototypes
         self.consistency_weight = consistency_weight
         self.sense_prior = sense_prior
@@ -251,15 +270,35 @@ class Disambiguator:
         return self._results(spans, self._decide(spans, rationale))
 
     def classify_vectors(
-        self, spans: Sequence[SpanQuery], vectors: np.ndarray
+        self,
+        spans: Sequence[SpanQuery],
+        vectors: np.ndarray,
+        sentences: np.ndarray | None = None,
     ) -> list[OccurrenceResult]:
         """Like classify_spans, from span vectors encoded earlier by the encoder this
-        engine was given (e.g. cached under its model_id); no rationale."""
+        engine was given (e.g. cached under its model_id); no rationale.
+
+        With the sentence channel on, `sentences` (the spans' window sentence vectors,
+        `encode_spans_with_windows`) are required: a ValueError says so otherwise."""
         self._check_queries(spans)
         if len(vectors) != len(spans):
             raise ValueError("one vector per span")
+        if self.prototypes.sentences:
+            if sentences is None:
+                raise ValueError(
+                    "this inventory's sentence channel is on (sentence_weight > 0): pass "
+                    "the spans' window sentence vectors too"
+                )
+            if len(sentences) != len(spans):
+                raise ValueError("one sentence vector per span")
         aligned = self.align(vectors)
-        return self._results(spans, [(a, None) for a in self._assign(spans, aligned)])
+        aligned_sentences = (
+            self.align(sentences) if self.prototypes.sentences and sentences is not None
+            else None
+        )
+        return self._results(
+            spans, [(a, None) for a in self._assign(spans, aligned, aligned_sentences)]
+        )
 
     def align(self, vectors: np.ndarray) -> np.ndarray:
         """Span vectors of the given encoder in the space prototypes live in (unchanged
@@ -317,12 +356,21 @@ class Disambiguator:
             return []
         triples = [(query.text, query.start, query.end) for query in spans]
         encodings: list[SpanEncoding] | None = None
+        sentences: np.ndarray | None = None
         if rationale:
             encodings = self.encoder.encode_spans_detailed(triples)
             vectors = np.stack([encoding.vector for encoding in encodings])
+            if self.prototypes.sentences:
+                sentences = np.stack([
+                    encoding.sentence if encoding.sentence is not None
+                    else np.zeros(len(encoding.vector), np.float32)
+                    for encoding in encodings
+                ])
+        elif self.prototypes.sentences:
+            vectors, sentences = self.encoder.encode_spans_with_windows(triples)
         else:
             vectors = self.encoder.encode_spans(triples)
-        assignments = self._assign(spans, vectors)
+        assignments = self._assign(spans, vectors, sentences)
         if encodings is None:
             return [(assignment, None) for assignment in assignments]
         return [
@@ -330,13 +378,22 @@ class Disambiguator:
             for query, encoding, assignment in zip(spans, encodings, assignments, strict=True)
         ]
 
-    def _assign(self, spans: Sequence[SpanQuery], vectors: np.ndarray) -> list[Assignment]:
+    def _assign(
+        self,
+        spans: Sequence[SpanQuery],
+        vectors: np.ndarray,
+        sentences: np.ndarray | None = None,
+    ) -> list[Assignment]:
         rows = self.similarities(spans, vectors)
+        if sentences is None:
+            sentences_of: list[np.ndarray | None] = [None] * len(spans)
+        else:
+            sentences_of = list(sentences)
         settings = self.inventory.settings
         trust = self.trust
         outlier_score = OccurrenceScorer(self.prototypes)
         assignments = []
-        for query, row, vector in zip(spans, rows, vectors, strict=True):
+        for query, row, vector, sentence in zip(spans, rows, vectors, sentences_of, strict=True):
             prior = self.prototypes.log_prior(query.term) if self.sense_prior else None
             senses = self.prototypes.senses(query.term)
             p_value = trust.missing.p_value(outlier_score(query.term, vector))
@@ -347,7 +404,7 @@ class Disambiguator:
                     settings,
                     trust.temperature,
                     prior,
-                    scores=self.prototypes.scores(query.term, row),
+                    scores=self.prototypes.scores(query.term, row, sentence),
                     review_threshold=trust.review.threshold,
                     missing_sense_p=p_value,
                     missing_sense=trust.missing.flags(p_value),

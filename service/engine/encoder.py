@@ -14,6 +14,13 @@ beat the mean of the last two, three, four and all layers (see
 docs/measurements.md). Glosses are encoded with the template
 `DEFAULT_GLOSS_TEMPLATE`, pooled over all of their tokens from the same layers,
 so glosses and occurrences live in one space.
+
+The sentence channel (prototypes.py) also needs each occurrence's window as a
+whole: the model's native sentence embedding (Reimers & Gurevych 2019,
+Sentence-BERT), the mean of the last layer over every token of the window
+([CLS] and [SEP] included, as the model was trained), L2-normalised. It comes
+from the same forward pass as the span vectors (`encode_spans_with_windows`);
+glosses get it through `encode_gloss_sentences`.
 """
 
 from __future__ import annotations
@@ -98,6 +105,7 @@ class SpanEncoding:
     vector: np.ndarray
     window: EncodedWindow
     term_tokens: np.ndarray
+    sentence: np.ndarray | None = None  # the window's native sentence vector
 
 
 def attention_rollout(attentions: Sequence[np.ndarray]) -> np.ndarray:
@@ -271,10 +279,15 @@ class ContextEncoder:
         placed: Sequence[tuple[int, int, int]],
         *,
         details: bool,
-    ) -> tuple[np.ndarray, list[SpanEncoding] | None]:
+        sentences: bool = False,
+    ) -> tuple[np.ndarray, list[SpanEncoding] | None, np.ndarray | None]:
+        """Span vectors, their encodings (with `details`) and, with `sentences` (or
+        `details`), each span's window sentence vector."""
         spans_of: dict[int, list[int]] = {}
         for span_id, (window_index, _s, _e) in enumerate(placed):
             spans_of.setdefault(window_index, []).append(span_id)
+        want_sentences = sentences or details
+        window_sentences = np.zeros((len(windows), self.dimension), np.float32)
         vectors = np.zeros((len(placed), self.dimension), np.float32)
         encodings: list[SpanEncoding | None] = [None] * len(placed)
         tokenized = self._tokenize([text for text, _ in windows])
@@ -282,6 +295,10 @@ class ContextEncoder:
         for batch in self._batches([len(row) for row in all_ids]):
             output = self._forward([all_ids[i] for i in batch], attentions=details)
             pooled = self._pool_layers(output.hidden_states)
+            if want_sentences:
+                window_sentences[batch] = self._sentence_rows(
+                    output.hidden_states[-1], [len(all_ids[i]) for i in batch]
+                )
             for row, window_id in enumerate(batch):
                 offsets = np.asarray(tokenized["offset_mapping"][window_id], np.int64)
                 special = np.asarray(tokenized["special_tokens_mask"][window_id], bool)
@@ -307,10 +324,33 @@ class ContextEncoder:
                             vector=vectors[span_id], window=window, term_tokens=tokens
                         )
         vectors = _normalise(vectors)
+        span_sentences = None
+        if want_sentences:
+            span_sentences = _normalise(window_sentences)[[index for index, _, _ in placed]]
         for span_id, item in enumerate(encodings):
             if item is not None:
-                encodings[span_id] = SpanEncoding(vectors[span_id], item.window, item.term_tokens)
-        return vectors, (encodings if details else None)  # type: ignore[return-value]
+                encodings[span_id] = SpanEncoding(
+                    vectors[span_id],
+                    item.window,
+                    item.term_tokens,
+                    None if span_sentences is None else span_sentences[span_id],
+                )
+        return (
+            vectors,
+            (encodings if details else None),  # type: ignore[return-value]
+            span_sentences,
+        )
+
+    @staticmethod
+    def _sentence_rows(last: torch.Tensor, lengths: Sequence[int]) -> np.ndarray:
+        """(batch, dim) mean of the last layer over each row's tokens, padding left out
+        (sentence-transformers' mean pooling; normalised by the caller)."""
+        width = last.shape[1]
+        mask = torch.zeros((len(lengths), width, 1), dtype=last.dtype)
+        for number, length in enumerate(lengths):
+            mask[number, :length] = 1.0
+        rows: np.ndarray = ((last * mask).sum(dim=1) / mask.sum(dim=1).clamp(min=1.0)).numpy()
+        return rows
 
     def _window_details(
         self,
@@ -349,15 +389,31 @@ class ContextEncoder:
         if not spans:
             return np.zeros((0, self.dimension), np.float32)
         windows, placed = self.plan(spans)
-        vectors, _ = self._encode_planned(windows, placed, details=False)
+        vectors, _, _ = self._encode_planned(windows, placed, details=False)
         return vectors
+
+    def encode_spans_with_windows(
+        self, spans: Sequence[tuple[str, int, int]]
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """`encode_spans` and, from the same forward pass, each span's window sentence
+        vector (module docstring): two float32 (spans, dim) arrays of unit rows."""
+        if not spans:
+            empty = np.zeros((0, self.dimension), np.float32)
+            return empty, empty.copy()
+        windows, placed = self.plan(spans)
+        vectors, _, sentences = self._encode_planned(
+            windows, placed, details=False, sentences=True
+        )
+        if sentences is None:  # cannot happen: sentences=True always pools them
+            raise RuntimeError("window sentence vectors were not pooled")
+        return vectors, sentences
 
     def encode_spans_detailed(self, spans: Sequence[tuple[str, int, int]]) -> list[SpanEncoding]:
         """`encode_spans` plus each window's tokens, attention and rollout (for rationales)."""
         if not spans:
             return []
         windows, placed = self.plan(spans)
-        _, encodings = self._encode_planned(windows, placed, details=True)
+        _, encodings, _ = self._encode_planned(windows, placed, details=True)
         return encodings or []
 
     def gloss_text(self, term: str, gloss: str, examples: Sequence[str] = ()) -> str:
@@ -390,6 +446,25 @@ class ContextEncoder:
     def encode_glosses(self, glosses: Sequence[tuple[str, str, Sequence[str]]]) -> np.ndarray:
         """Vectors of (term, gloss, examples) triples through the gloss template; normalised."""
         return self.encode_texts([self.gloss_text(t, g, tuple(e)) for t, g, e in glosses])
+
+    def encode_sentences(self, texts: Sequence[str]) -> np.ndarray:
+        """Native sentence vectors of whole texts (module docstring): (texts, dim), unit rows."""
+        vectors = np.zeros((len(texts), self.dimension), np.float32)
+        if not texts:
+            return vectors
+        all_ids = self._tokenize(texts)["input_ids"]
+        for batch in self._batches([len(row) for row in all_ids]):
+            output = self._forward([all_ids[i] for i in batch], attentions=False)
+            vectors[batch] = self._sentence_rows(
+                output.hidden_states[-1], [len(all_ids[i]) for i in batch]
+            )
+        return _normalise(vectors)
+
+    def encode_gloss_sentences(
+        self, glosses: Sequence[tuple[str, str, Sequence[str]]]
+    ) -> np.ndarray:
+        """Native sentence vectors of glosses through the gloss template; normalised."""
+        return self.encode_sentences([self.gloss_text(t, g, tuple(e)) for t, g, e in glosses])
 
     def encode_erasures(
         self, window: EncodedWindow, term_tokens: np.ndarray, erased: Sequence[np.ndarray]

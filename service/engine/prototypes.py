@@ -40,6 +40,20 @@ then only sharpens r(s), so accuracy rises with evidence instead of falling.
 With it the evidence weight k = DEFAULT_EVIDENCE_PRIOR = 16 (4 before): senses with one or
 two labels barely move (the cause of evidence hurting), many labels take over.
 
+Sentence channel (Sentence-BERT's native sentence embedding, Reimers &
+Gurevych 2019): besides the token-level vector, each occurrence's context
+window is read as one mean-pooled sentence vector (encoder.py). Each sense
+keeps a sentence prototype made like the token one: its definition part is the
+mean of the gloss's sentence vector and its example sentences' window vectors,
+its evidence part the mean of the evidence windows' vectors, mixed with the
+same n/(n+k) weight (`blend`). A sense's score becomes
+    token score + w * cosine(window sentence vector, sentence prototype),
+w = the inventory's `sentence_weight` (0: off, nothing extra encoded, scores
+unchanged). The token vector says what the word means here; the sentence
+vector says what the passage is about, which is what a curator's gloss and a
+document's topic share. Measured on held-out domain inventories and SemCor dev
+in docs/measurements.md ("Sentence channel").
+
 The book keeps per-sense sums and counts, so adding evidence encodes only the
 new items and updates a few rows; it also keeps each item's vector (unless told
 not to) to name the evidence nearest to an occurrence in the rationale.
@@ -79,6 +93,13 @@ class SpanEncoder(Protocol):
 
     def encode_glosses(self, glosses: Sequence[tuple[str, str, Sequence[str]]]) -> np.ndarray: ...
 
+    def encode_spans_with_windows(self, spans: Sequence[tuple[str, int, int]]) -> (
+            tuple[np.ndarray, np.ndarray]): ...
+
+    def encode_gloss_sentences(
+        self, glosses: Sequence[tuple[str, str, Sequence[str]]]
+    ) -> np.ndarray: ...
+
 
 @dataclass(frozen=True)
 class NearestEvidence:
@@ -104,6 +125,10 @@ class _SenseAccumulator:
     evidence_sum: np.ndarray
     definition_count: int = 0
     evidence_count: int = 0
+    # The sentence channel's sums (zeros while it is off); evidence_count serves both.
+    sentence_definition_sum: np.ndarray | None = None
+    sentence_evidence_sum: np.ndarray | None = None
+    sentence_definition_count: int = 0
 
 
 @dataclass
@@ -115,6 +140,7 @@ class _TermItems:
     sense_ids: list[str] = field(default_factory=list)
     texts: list[str] = field(default_factory=list)
     evidence_ids: list[int | None] = field(default_factory=list)
+    sentences: list[np.ndarray | None] = field(default_factory=list)  # sentence channel
     stacked: np.ndarray | None = None
 
 
@@ -142,7 +168,7 @@ class HeldOutRow:
     kind: ItemKind
     gold: int  # index of the item's sense among the term's senses
     similarities: np.ndarray  # cosines to the held-out prototypes
-    scores: np.ndarray  # similarities minus the hub penalty, what softmax sees
+    scores: np.ndarray  # similarities minus the hub penalty (plus the sentence channel)
 
 
 def blend(
@@ -174,8 +200,16 @@ class PrototypeBook:
         evidence_prior: float = DEFAULT_EVIDENCE_PRIOR,
         keep_items: bool = True,
         hub_weight: float = DEFAULT_HUB_WEIGHT,
+        sentence_weight: float | None = None,
     ) -> None:
+        """`sentence_weight` None takes the inventory's setting (module docstring)."""
         self.inventory = inventory
+        self.sentence_weight = float(
+            inventory.settings.sentence_weight if sentence_weight is None else sentence_weight
+        )
+        if self.sentence_weight < 0:
+            raise ValueError("the sentence weight must not be negative")
+        self._sentence_matrices: dict[str, np.ndarray] = {}
         self.hub_weight = hub_weight
         self._penalties: dict[str, np.ndarray] = {}
         self.model_id = model_id
@@ -201,7 +235,16 @@ class PrototypeBook:
                 self._accumulators[sense_id] = _SenseAccumulator(
                     np.zeros(dimension, np.float64), np.zeros(dimension, np.float64)
                 )
+                if self.sentences:
+                    accumulator = self._accumulators[sense_id]
+                    accumulator.sentence_definition_sum = np.zeros(dimension, np.float64)
+                    accumulator.sentence_evidence_sum = np.zeros(dimension, np.float64)
             self._items[spec.term] = _TermItems()
+
+    @property
+    def sentences(self) -> bool:
+        """Whether the sentence channel is on (sentence vectors are encoded and kept)."""
+        return self.sentence_weight > 0
 
     @property
     def key(self) -> tuple[str, int, str]:
@@ -217,9 +260,11 @@ class PrototypeBook:
         evidence: Sequence[Evidence] = (),
         *,
         evidence_vectors: np.ndarray | None = None,
+        evidence_sentences: np.ndarray | None = None,
         finder: OccurrenceFinder | None = None,
         evidence_prior: float = DEFAULT_EVIDENCE_PRIOR,
         keep_items: bool = True,
+        sentence_weight: float | None = None,
     ) -> PrototypeBook:
         """Encode every gloss and example of `inventory`, then add `evidence`."""
         book = cls(
@@ -228,10 +273,16 @@ class PrototypeBook:
             encoder.dimension,
             evidence_prior=evidence_prior,
             keep_items=keep_items,
+            sentence_weight=sentence_weight,
         )
         book.add_definitions(encoder, finder)
         if len(evidence):
-            book.add_evidence(evidence, vectors=evidence_vectors, encoder=encoder)
+            book.add_evidence(
+                evidence,
+                vectors=evidence_vectors,
+                sentence_vectors=evidence_sentences,
+                encoder=encoder,
+            )
         return book
 
     def add_definitions(self, encoder: SpanEncoder, finder: OccurrenceFinder | None = None) -> None:
@@ -252,39 +303,60 @@ class PrototypeBook:
                         example_spans.append((example, *span))
                         example_owner.append((spec.term, sense.sense_id, example))
         gloss_vectors = encoder.encode_glosses(gloss_inputs) if gloss_inputs else None
-        example_vectors = encoder.encode_spans(example_spans) if example_spans else None
+        gloss_sentences = example_sentences = None
+        if not example_spans:
+            example_vectors = None
+        elif self.sentences:
+            example_vectors, example_sentences = encoder.encode_spans_with_windows(example_spans)
+        else:
+            example_vectors = encoder.encode_spans(example_spans)
+        if self.sentences and gloss_inputs:
+            gloss_sentences = encoder.encode_gloss_sentences(gloss_inputs)
         with self._lock:
-            for owners, vectors, kind in (
-                (gloss_owner, gloss_vectors, "gloss"),
-                (example_owner, example_vectors, "example"),
+            for owners, vectors, sentences, kind in (
+                (gloss_owner, gloss_vectors, gloss_sentences, "gloss"),
+                (example_owner, example_vectors, example_sentences, "example"),
             ):
                 if vectors is None:
                     continue
-                for (term, sense_id, text), vector in zip(owners, vectors, strict=True):
+                for n, ((term, sense_id, text), vector) in enumerate(
+                    zip(owners, vectors, strict=True)
+                ):
                     accumulator = self._accumulators[sense_id]
                     accumulator.definition_sum += vector
                     accumulator.definition_count += 1
-                    self._remember(term, kind, sense_id, text, vector, None)  # type: ignore[arg-type]
+                    sentence = None if sentences is None else sentences[n]
+                    if sentence is not None:
+                        accumulator.sentence_definition_sum += sentence
+                        accumulator.sentence_definition_count += 1
+                    self._remember(term, kind, sense_id, text, vector, None,  # type: ignore[arg-type]
+                                   sentence)
             self._matrices.clear()
             self._penalties.clear()
+            self._sentence_matrices.clear()
 
     def add_evidence(
         self,
         evidence: Sequence[Evidence],
         *,
         vectors: np.ndarray | None = None,
+        sentence_vectors: np.ndarray | None = None,
         encoder: SpanEncoder | None = None,
         skip_unknown: bool = False,
     ) -> int:
         """Add labeled occurrences; encodes only items not seen before. Returns how many were added.
 
         Pass `vectors` (rows aligned with `evidence`, unit length) when they are
-        cached elsewhere; otherwise an encoder is needed. Evidence naming a sense
-        this inventory version lacks raises InventoryError, or is left out with
-        skip_unknown (evidence outlives senses a curator removed).
+        cached elsewhere, and with the sentence channel on `sentence_vectors`
+        (their window sentence vectors) too; otherwise an encoder is needed.
+        Evidence naming a sense this inventory version lacks raises
+        InventoryError, or is left out with skip_unknown (evidence outlives
+        senses a curator removed).
         """
         if vectors is not None and len(vectors) != len(evidence):
             raise ValueError("evidence and vectors differ in length")
+        if sentence_vectors is not None and len(sentence_vectors) != len(evidence):
+            raise ValueError("evidence and sentence vectors differ in length")
         fresh = []
         for i, item in enumerate(evidence):
             if item.evidence_id in self._seen_evidence:
@@ -299,21 +371,31 @@ class PrototypeBook:
             fresh.append(i)
         if not fresh:
             return 0
-        if vectors is None:
+        new_sentences: np.ndarray | None = None
+        if self.sentences and sentence_vectors is not None:
+            new_sentences = np.asarray(sentence_vectors, dtype=np.float32)[fresh]
+        if vectors is None or (self.sentences and new_sentences is None):
             if encoder is None:
-                raise ValueError("an encoder is needed to encode evidence without vectors")
+                raise ValueError(
+                    "an encoder is needed to encode evidence without vectors"
+                    + (" and sentence vectors" if self.sentences else "")
+                )
             if encoder.model_id != self.model_id:
                 raise InventoryError(
                     f"prototypes were built with {self.model_id}, not {encoder.model_id}"
                 )
-            new_vectors = encoder.encode_spans(
-                [(evidence[i].text, evidence[i].start, evidence[i].end) for i in fresh]
-            )
+            spans = [(evidence[i].text, evidence[i].start, evidence[i].end) for i in fresh]
+            if self.sentences:
+                encoded, encoded_sentences = encoder.encode_spans_with_windows(spans)
+                new_sentences = encoded_sentences if new_sentences is None else new_sentences
+            else:
+                encoded = encoder.encode_spans(spans)
+            new_vectors = encoded if vectors is None else np.asarray(vectors, np.float32)[fresh]
         else:
             new_vectors = np.asarray(vectors, dtype=np.float32)[fresh]
         with self._lock:
             touched: set[str] = set()
-            for i, vector in zip(fresh, new_vectors, strict=True):
+            for n, (i, vector) in enumerate(zip(fresh, new_vectors, strict=True)):
                 item = evidence[i]
                 if item.evidence_id in self._seen_evidence:
                     continue
@@ -321,13 +403,18 @@ class PrototypeBook:
                 accumulator = self._accumulators[item.sense_id]
                 accumulator.evidence_sum += vector
                 accumulator.evidence_count += 1
+                sentence = None if new_sentences is None else new_sentences[n]
+                if sentence is not None:
+                    accumulator.sentence_evidence_sum += sentence
                 self._remember(
-                    item.term, "evidence", item.sense_id, item.text, vector, item.evidence_id
+                    item.term, "evidence", item.sense_id, item.text, vector, item.evidence_id,
+                    sentence,
                 )
                 touched.add(item.term)
             for term in touched:
                 self._matrices.pop(term, None)
                 self._penalties.pop(term, None)
+                self._sentence_matrices.pop(term, None)
         return len(fresh)
 
     def _remember(
@@ -338,10 +425,12 @@ class PrototypeBook:
         text: str,
         vector: np.ndarray,
         evidence_id: int | None,
+        sentence: np.ndarray | None = None,
     ) -> None:
         if not self.keep_items:
             return
         items = self._items[term]
+        items.sentences.append(None if sentence is None else np.asarray(sentence, np.float32))
         items.vectors.append(np.asarray(vector, np.float32))
         items.kinds.append(kind)
         items.sense_ids.append(sense_id)
@@ -405,6 +494,47 @@ class PrototypeBook:
         self._matrices[term] = matrix
         return matrix
 
+    def sentence_prototype(
+        self,
+        sense_id: str,
+        *,
+        without: np.ndarray | None = None,
+        without_definition: np.ndarray | None = None,
+    ) -> np.ndarray | None:
+        """One sense's sentence prototype (sentence channel on); `without` removes one
+        evidence window vector and `without_definition` one example's (leave-one-out)."""
+        accumulator = self._accumulators[sense_id]
+        if accumulator.sentence_definition_sum is None or accumulator.sentence_evidence_sum is None:
+            return None
+        evidence_sum = accumulator.sentence_evidence_sum
+        count = accumulator.evidence_count
+        if without is not None:
+            evidence_sum, count = evidence_sum - without, count - 1
+        definition_sum = accumulator.sentence_definition_sum
+        definition_count = accumulator.sentence_definition_count
+        if without_definition is not None:
+            definition_sum = definition_sum - without_definition
+            definition_count -= 1
+        definition = definition_sum if definition_count else None
+        evidence = evidence_sum if count > 0 else None
+        if definition is None and evidence is None:
+            return None
+        return blend(definition, evidence, count, self.evidence_prior).astype(np.float32)
+
+    def sentence_matrix(self, term: str) -> np.ndarray:
+        """(senses, dim) unit sentence prototypes of a term's senses (zero rows while
+        the channel is off or a sense has nothing behind it)."""
+        cached = self._sentence_matrices.get(term)
+        if cached is not None:
+            return cached
+        rows = []
+        for sense_id in self.senses(term):
+            row = self.sentence_prototype(sense_id)
+            rows.append(row if row is not None else np.zeros(self.dimension, np.float32))
+        matrix = np.stack(rows).astype(np.float32)
+        self._sentence_matrices[term] = matrix
+        return matrix
+
     def log_prior(self, term: str, smoothing: float = DEFAULT_PRIOR_SMOOTHING) -> np.ndarray:
         """log p(sense) for the term's senses from evidence counts, add-`smoothing` smoothed."""
         if smoothing <= 0:
@@ -434,10 +564,36 @@ class PrototypeBook:
         self._penalties[term] = penalty
         return penalty
 
-    def scores(self, term: str, similarities: np.ndarray) -> np.ndarray:
-        """Similarity rows (n, senses) of `term` turned into scores: minus the hub penalty."""
+    def scores(
+        self, term: str, similarities: np.ndarray, sentences: np.ndarray | None = None
+    ) -> np.ndarray:
+        """Similarity rows (n, senses) of `term` turned into scores: minus the hub penalty,
+        plus, with the sentence channel on, sentence_weight times the cosines of the
+        occurrences' window sentence vectors `sentences` (n, dim) to the sentence
+        prototypes. A caller without sentence vectors gets a ValueError while the
+        channel is on: scores without it would be on another scale."""
         scored: np.ndarray = np.asarray(similarities, np.float64) - self.penalty(term)
-        return scored
+        if not self.sentences:
+            return scored
+        total: np.ndarray = scored + self.sentence_channel(term, sentences).reshape(scored.shape)
+        return total
+
+    def sentence_channel(self, term: str, sentences: np.ndarray | None) -> np.ndarray:
+        """(n, senses) sentence_weight times the cosines of window sentence vectors (n, dim)
+        to the term's sentence prototypes; zeros while the channel is off."""
+        if not self.sentences:
+            return np.zeros((1 if sentences is None else len(np.atleast_2d(sentences)),
+                             len(self.senses(term))))
+        if sentences is None:
+            raise ValueError(
+                "the sentence channel is on (sentence_weight > 0): scores need the "
+                "occurrences' window sentence vectors"
+            )
+        rows = np.asarray(sentences, np.float64).reshape(-1, self.dimension)
+        channel: np.ndarray = self.sentence_weight * (
+            rows @ self.sentence_matrix(term).astype(np.float64).T
+        )
+        return channel
 
     def contextual_items(self, term: str) -> tuple[np.ndarray, list[str], list[ItemKind]]:
         """(vectors, sense ids, kinds) of the term's labeled occurrences: example
@@ -450,6 +606,21 @@ class PrototypeBook:
             return np.zeros((0, self.dimension), np.float64), [], []
         vectors = np.stack([items.vectors[i] for i in keep]).astype(np.float64)
         return vectors, [items.sense_ids[i] for i in keep], [items.kinds[i] for i in keep]
+
+    def contextual_sentences(self, term: str) -> np.ndarray:
+        """(items, dim) window sentence vectors of `contextual_items(term)`, same order
+        (zero rows for items kept without one, e.g. while the channel is off)."""
+        items = self._items.get(term)
+        if items is None:
+            return np.zeros((0, self.dimension), np.float64)
+        rows = [
+            np.zeros(self.dimension, np.float32) if sentence is None else sentence
+            for sentence, kind in zip(items.sentences, items.kinds, strict=True)
+            if kind != "gloss"
+        ]
+        if not rows:
+            return np.zeros((0, self.dimension), np.float64)
+        return np.stack(rows).astype(np.float64)
 
     def gloss_vectors(self, term: str) -> np.ndarray:
         """(glosses, dim) gloss vectors of the term's senses (those that have a gloss)."""
@@ -483,6 +654,9 @@ class PrototypeBook:
             vectors, owners, kinds = self.contextual_items(term)
             matrix = self.matrix(term).astype(np.float64)
             base = matrix @ vectors.T  # (senses, items): computed once per term
+            if self.sentences:
+                sentence_vectors = self.contextual_sentences(term)
+                sentence_matrix = self.sentence_matrix(term).astype(np.float64)
             for index in indices:
                 vector, sense_id, kind = vectors[index], owners[index], kinds[index]
                 position = sense_ids.index(sense_id)
@@ -504,9 +678,20 @@ class PrototypeBook:
                         -np.partition(-sims, top - 1, axis=1)[:, :top]
                     ).mean(axis=1)
                 similarities = prototypes @ vector
-                rows.append(
-                    HeldOutRow(term, kind, position, similarities, similarities - penalty)
-                )
+                scores = similarities - penalty
+                if self.sentences:  # the sentence channel, cross-fitted the same way
+                    sentence = sentence_vectors[index]
+                    held_sentence = self.sentence_prototype(
+                        sense_id,
+                        without=sentence if kind == "evidence" else None,
+                        without_definition=sentence if kind == "example" else None,
+                    )
+                    sentence_prototypes = sentence_matrix.copy()
+                    sentence_prototypes[position] = (
+                        held_sentence if held_sentence is not None else 0.0
+                    )
+                    scores = scores + self.sentence_weight * (sentence_prototypes @ sentence)
+                rows.append(HeldOutRow(term, kind, position, similarities, scores))
         return rows
 
     def nearest(self, term: str, vector: np.ndarray) -> NearestEvidence | None:
@@ -575,15 +760,18 @@ class PrototypeCache:
         evidence: Sequence[Evidence] = (),
         *,
         evidence_vectors: np.ndarray | None = None,
+        evidence_sentences: np.ndarray | None = None,
     ) -> PrototypeBook:
         """The cached book for this inventory version and encoder, built if missing;
         evidence not yet in a cached book is added incrementally."""
         book = self.get(inventory, encoder.model_id)
         if book is None:
             book = PrototypeBook.build(
-                encoder, inventory, evidence, evidence_vectors=evidence_vectors
+                encoder, inventory, evidence, evidence_vectors=evidence_vectors,
+                evidence_sentences=evidence_sentences,
             )
             self.put(book)
         elif len(evidence):
-            book.add_evidence(evidence, vectors=evidence_vectors, encoder=encoder)
+            book.add_evidence(evidence, vectors=evidence_vectors,
+                              sentence_vectors=evidence_sentences, encoder=encoder)
         return book

@@ -50,6 +50,13 @@ DEFAULT_TARGET_ACCURACY = 0.95
 DEFAULT_TARGET_DELTA = 0.1
 DEFAULT_MISSING_SENSE_RATE = 0.05
 
+# Weight of the sentence channel (engine/prototypes.py): each sense's score gains
+# weight * cosine(the occurrence's window sentence vector, the sense's sentence
+# prototype); 0 turns the channel off (and nothing extra is encoded). The default
+# was chosen on held-out domain inventories (docs/measurements.md, "Sentence channel").
+DEFAULT_SENTENCE_WEIGHT = 1.0
+SENTENCE_WEIGHT_BOUNDS: tuple[float, float] = (0.0, 4.0)
+
 
 @dataclass(frozen=True)
 class InventorySettings:
@@ -60,6 +67,8 @@ class InventorySettings:
     floor of the conservative fallback used when labels are too few; None keeps
     the fixed `review_threshold`. `missing_sense_rate` 0 turns missing-sense
     flagging off (the cosine floor `abstain_threshold` still applies).
+    `sentence_weight` weighs the sentence channel (whole-window sentence vectors
+    against per-sense sentence prototypes) added to each sense's score; 0 is off.
     """
 
     review_threshold: float = 0.6
@@ -70,6 +79,7 @@ class InventorySettings:
     target_delta: float = DEFAULT_TARGET_DELTA
     missing_sense_rate: float = DEFAULT_MISSING_SENSE_RATE
     alignment_head: str | None = None  # a bundled alignment head's id (engine/alignment.py)
+    sentence_weight: float = DEFAULT_SENTENCE_WEIGHT  # the sentence channel's weight
 
 
 @dataclass(frozen=True)

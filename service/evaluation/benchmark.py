@@ -61,6 +61,9 @@ from service.wordnet.senses import (
 
 Log = Callable[[str], None]
 SPAN_RECIPE = "wordnet-corpus-spans/1"
+WINDOW_RECIPE = "wordnet-corpus-windows/1"
+# Window sentence vectors of instances, for the sentence channel: instances -> (n, dim).
+Windows = Callable[[Sequence["Instance"]], np.ndarray]
 GLOSS_RECIPE = "wordnet-gloss-texts/1"
 
 
@@ -78,13 +81,19 @@ class EngineOptions:
     # SemCor labels, and k=4 won on SemCor dev; curated domain inventories keep the engine's
     # default (docs/measurements.md, "Trust").
     evidence_prior: float = 4.0
+    # The sentence channel's weight (InventorySettings.sentence_weight) of the WordNet
+    # inventories: 0, chosen on SemCor dev, where weights 0.5-1 gained under half a point
+    # (within noise) and 2 lost (docs/measurements.md, "Sentence channel"); domain
+    # inventories keep the default.
+    sentence_weight: float = 0.0
 
     def to_json(self) -> dict[str, Any]:
         return {"sense_prior_pos": self.sense_prior_pos,
                 "alignment_head": None if self.head is None else
                 f"{self.head.head_id}.v{self.head.version}",
                 "consistency_weight": self.consistency_weight,
-                "evidence_prior": self.evidence_prior}
+                "evidence_prior": self.evidence_prior,
+                "sentence_weight": self.sentence_weight}
 
 
 @dataclass(frozen=True)
@@ -151,6 +160,31 @@ def encode_instances(
     parts = {"spans": _digest([f"{s}:{e}:{t}" for t, s, e in spans]),
              "model": encoder.model_id, "recipe": SPAN_RECIPE}
     return cached_array(parts, compute, cache_dir)
+
+
+def encode_instance_windows(
+    encoder: Any, instances: Sequence[Instance], cache_dir: Path | None
+) -> np.ndarray:
+    """Window sentence vectors of every instance (the sentence channel's input, through
+    the engine's encoder), cached under `cache_dir` (None: not cached)."""
+    spans = [(i.text, i.start, i.end) for i in instances]
+    if not spans:
+        return np.zeros((0, encoder.dimension), np.float32)
+
+    def compute() -> np.ndarray:
+        return np.asarray(encoder.encode_spans_with_windows(spans)[1], np.float32)
+
+    if cache_dir is None:
+        return compute()
+    parts = {"spans": _digest([f"{s}:{e}:{t}" for t, s, e in spans]),
+             "model": encoder.model_id, "recipe": WINDOW_RECIPE}
+    return cached_array(parts, compute, cache_dir)[0]
+
+
+def window_lookup(instances: Sequence[Instance], vectors: np.ndarray) -> Windows:
+    """A `Windows` function over instances encoded together (by span: one span, one window)."""
+    row = {(i.text, i.start, i.end): n for n, i in enumerate(instances)}
+    return lambda wanted: vectors[[row[(i.text, i.start, i.end)] for i in wanted]]
 
 
 def candidate_keys(reader: WordNetCorpusReader, instance: Instance) -> list[str]:
@@ -232,13 +266,15 @@ def f1_table(instances: Sequence[Instance], predicted: dict[int, str]) -> dict[s
 def make_engine(
     encoder: Any, inventory: InventorySpec, evidence: Sequence[Evidence],
     evidence_vectors: np.ndarray, options: EngineOptions,
+    evidence_sentences: np.ndarray | None = None,
 ) -> Disambiguator:
     """The one place the benchmark builds the engine: the same public constructor `tag`, the
     API and the worker use (the engine factory of service/tagging can replace this line)."""
     prior = any(term.pos is not None and term.pos in options.sense_prior_pos
                 for term in inventory.terms)
     return Disambiguator(encoder, inventory, evidence, evidence_vectors=evidence_vectors,
-                         sense_prior=prior, evidence_prior=options.evidence_prior,
+                         evidence_sentences=evidence_sentences, sense_prior=prior,
+                         evidence_prior=options.evidence_prior,
                          alignment_head=options.head,
                          consistency_weight=options.consistency_weight)
 
@@ -250,7 +286,8 @@ def _term(lemma: str) -> str:
 @dataclass
 class EngineDecisions:
     """Per instance: candidate keys in inventory order, the engine's similarity row (after
-    document consistency), its log prior row, probabilities, and the sense it chose."""
+    document consistency, plus the sentence channel when it is on), its log prior row,
+    probabilities, and the sense it chose."""
 
     candidates: list[list[str]]
     similarities: list[np.ndarray]
@@ -271,11 +308,16 @@ def engine_decisions(
     test_vectors: np.ndarray,
     options: EngineOptions,
     temperature: float | None = None,
+    windows: Windows | None = None,
 ) -> EngineDecisions:
     """Build the shipped engine for the lemmas of `test` (one WordNet inventory per part of
     speech, every sense of each lemma, training instances of those lemmas as evidence) and
-    decide every test instance with it, from span vectors precomputed by `encoder`."""
-    settings = InventorySettings(abstain_threshold=0.0, temperature=temperature)
+    decide every test instance with it, from span vectors precomputed by `encoder` (and,
+    with the sentence channel on, window sentence vectors from `windows`)."""
+    settings = InventorySettings(abstain_threshold=0.0, temperature=temperature,
+                                 sentence_weight=options.sentence_weight)
+    if options.sentence_weight > 0 and windows is None:
+        raise ValueError("the sentence channel needs the instances' window sentence vectors")
     n = len(test)
     decisions = EngineDecisions([[] for _ in range(n)], [np.zeros(0)] * n, [np.zeros(0)] * n,
                                 [np.zeros(0)] * n)
@@ -293,13 +335,21 @@ def engine_decisions(
                   and item.gold[0] in senses.get(_term(item.lemma), ())]
         evidence = [Evidence(j + 1, _term(train[j].lemma), train[j].gold[0], train[j].text,
                              train[j].start, train[j].end) for j in chosen]
-        engine = make_engine(encoder, inventory, evidence, train_vectors[chosen], options)
+        channel = windows if options.sentence_weight > 0 else None
+        engine = make_engine(
+            encoder, inventory, evidence, train_vectors[chosen], options,
+            None if channel is None else channel([train[j] for j in chosen]))
         answered = [i for i in wanted if _term(test[i].lemma) in senses]
         queries = [SpanQuery(test[i].text, test[i].start, test[i].end, _term(test[i].lemma),
                              document_id=test[i].doc) for i in answered]
         vectors = test_vectors[answered]
         rows = engine.similarities(queries, engine.align(vectors))
-        results = engine.classify_vectors(queries, vectors)
+        sentences = None if channel is None else channel([test[i] for i in answered])
+        results = engine.classify_vectors(queries, vectors, sentences)
+        if sentences is not None:  # the temperature is fitted on what the softmax adds up
+            aligned = engine.align(sentences)
+            rows = [row + engine.prototypes.sentence_channel(query.term, window)[0]
+                    for query, row, window in zip(queries, rows, aligned, strict=True)]
         for i, query, row, result in zip(answered, queries, rows, results, strict=True):
             keys = list(engine.prototypes.senses(query.term))
             by_id = {c.sense_id: c.probability for c in result.candidates}
@@ -339,12 +389,14 @@ def score_engine(
     train: tuple[Sequence[Instance], np.ndarray],
     test: tuple[Sequence[Instance], np.ndarray],
     options: EngineOptions,
+    windows: Windows | None = None,
 ) -> dict[str, Any]:
     """Fit the temperature on `held` with an engine built from `fit`, then decide `test`
     with an engine built from all of `train` at that temperature."""
-    held_decisions = engine_decisions(encoder, reader, *fit, *held, options)
+    held_decisions = engine_decisions(encoder, reader, *fit, *held, options, windows=windows)
     temperature, rows, gold, priors = fit_engine_temperature(held_decisions, held[0])
-    decisions = engine_decisions(encoder, reader, *train, *test, options, temperature)
+    decisions = engine_decisions(encoder, reader, *train, *test, options, temperature,
+                                 windows=windows)
     return {"decisions": decisions, "temperature": temperature,
             "held_decisions": held_decisions, "held_rows": (rows, gold, priors)}
 
@@ -403,13 +455,18 @@ def run_benchmark(
     fit_train = [t for t, h in zip(train, is_held, strict=True) if not h]
     fit_vectors = train_vectors[~is_held]
     options = config.engine
+    windows: Windows | None = None
+    if options.sentence_weight > 0:
+        both = [*train, *test]
+        windows = window_lookup(both, encode_instance_windows(encoder, both, cache_dir))
 
     def engine_run(opts: EngineOptions, with_evidence: bool = True) -> dict[str, Any]:
         empty: tuple[list[Instance], np.ndarray] = ([], np.zeros((0, encoder.dimension)))
         return score_engine(
             items, reader,
             (fit_train, fit_vectors) if with_evidence else empty, (held, held_vectors),
-            (train, train_vectors) if with_evidence else empty, (test, test_vectors), opts)
+            (train, train_vectors) if with_evidence else empty, (test, test_vectors), opts,
+            windows)
 
     run = engine_run(options)
     decisions: EngineDecisions = run["decisions"]

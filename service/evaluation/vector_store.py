@@ -75,7 +75,8 @@ class VectorStore:
 
 class CachingEncoder:
     """Delegates to an encoder (ContextEncoder or anything with its methods), caching
-    `encode_spans` and `encode_glosses` per item."""
+    `encode_spans`, `encode_glosses` and the sentence channel's window and gloss
+    sentence vectors (`encode_spans_with_windows`, `encode_gloss_sentences`) per item."""
 
     def __init__(self, encoder: Any, root: Path) -> None:
         self.encoder = encoder
@@ -94,6 +95,35 @@ class CachingEncoder:
         keys = [_item_key("text", (text,)) for text in texts]
         return self.store.lookup(
             keys, lambda missing: self.encoder.encode_texts([texts[i] for i in missing]))
+
+    def encode_spans_with_windows(
+        self, spans: Sequence[tuple[str, int, int]]
+    ) -> tuple[np.ndarray, np.ndarray]:
+        span_keys = [_item_key("span", span) for span in spans]
+        window_keys = [_item_key("window", span) for span in spans]
+        rows = self.store.rows
+        missing = [i for i in range(len(spans))
+                   if span_keys[i] not in rows or window_keys[i] not in rows]
+        if missing:
+            vectors, sentences = self.encoder.encode_spans_with_windows(
+                [spans[i] for i in missing])
+            for i, vector, sentence in zip(missing, vectors, sentences, strict=True):
+                rows[span_keys[i]] = np.asarray(vector, np.float32)
+                rows[window_keys[i]] = np.asarray(sentence, np.float32)
+            self.store.dirty = True
+        if not spans:
+            empty = np.zeros((0, self.dimension), np.float32)
+            return empty, empty.copy()
+        return (np.stack([rows[key] for key in span_keys]).astype(np.float32),
+                np.stack([rows[key] for key in window_keys]).astype(np.float32))
+
+    def encode_gloss_sentences(
+        self, glosses: Sequence[tuple[str, str, Sequence[str]]]
+    ) -> np.ndarray:
+        texts = [self.encoder.gloss_text(t, g, tuple(e)) for t, g, e in glosses]
+        keys = [_item_key("sentence", (text,)) for text in texts]
+        return self.store.lookup(
+            keys, lambda missing: self.encoder.encode_sentences([texts[i] for i in missing]))
 
     def gloss_text(self, term: str, gloss: str, examples: Sequence[str] = ()) -> str:
         return str(self.encoder.gloss_text(term, gloss, examples))

@@ -19,6 +19,7 @@ from jsonschema import Draft202012Validator
 from service.engine.types import (
     ABSTAIN_THRESHOLD_BOUNDS,
     REVIEW_THRESHOLD_BOUNDS,
+    SENTENCE_WEIGHT_BOUNDS,
     InventorySettings,
     InventorySpec,
     SenseSpec,
@@ -83,8 +84,9 @@ def check_inventory_size(data: Any, *, max_terms: int, max_senses: int) -> None:
 def inventory_schema() -> dict[str, Any]:
     """The published JSON Schema of the inventory document.
 
-    The threshold bounds are the engine's (`REVIEW_THRESHOLD_BOUNDS`,
-    `ABSTAIN_THRESHOLD_BOUNDS`), written in here so that they have one owner.
+    The threshold and weight bounds are the engine's (`REVIEW_THRESHOLD_BOUNDS`,
+    `ABSTAIN_THRESHOLD_BOUNDS`, `SENTENCE_WEIGHT_BOUNDS`), written in here so that they
+    have one owner.
     """
     text = resources.files("service.inventory").joinpath("schema.json").read_text("utf-8")
     schema = json.loads(text)
@@ -92,6 +94,7 @@ def inventory_schema() -> dict[str, Any]:
     for name, (low, high) in (
         ("review_threshold", REVIEW_THRESHOLD_BOUNDS),
         ("abstain_threshold", ABSTAIN_THRESHOLD_BOUNDS),
+        ("sentence_weight", SENTENCE_WEIGHT_BOUNDS),
     ):
         settings[name] = {"type": "number", "minimum": low, "maximum": high}
     return schema
@@ -202,6 +205,7 @@ def parse_inventory_document(
             target_accuracy=settings.get("target_accuracy", defaults.target_accuracy),
             target_delta=settings.get("target_delta", defaults.target_delta),
             missing_sense_rate=settings.get("missing_sense_rate", defaults.missing_sense_rate),
+            sentence_weight=settings.get("sentence_weight", defaults.sentence_weight),
         ),
         terms=tuple(parse_term(term) for term in data["terms"]),
     )
@@ -241,6 +245,7 @@ def spec_to_document(spec: InventorySpec) -> dict[str, Any]:
             "target_accuracy": spec.settings.target_accuracy,
             "target_delta": spec.settings.target_delta,
             "missing_sense_rate": spec.settings.missing_sense_rate,
+            "sentence_weight": spec.settings.sentence_weight,
         },
         "terms": [term_to_document(term) for term in spec.terms],
     }

@@ -378,6 +378,8 @@ def rescore_term(
     )
     rest = [i for i in items if i.id not in answers]
     if rest:
+        # Stored vectors are token vectors only: these items are scored without the
+        # sentence channel (the re-tagged ones above have it, as any batch does).
         vectors = np.stack([vector_from_bytes(i.vector) for i in rest])
         with engine.lock:
             rows = book.similarities(item.term, vectors)

@@ -177,6 +177,8 @@ def item_view(session: Session, settings: Settings, item: ReviewItem) -> ItemVie
     )
     book = engine.disambiguator.prototypes
     if item.term in book.terms():
+        # The stored vector is the token vector alone: this ordering of the senses leaves
+        # out the sentence channel (the item's own result, shown beside it, has it).
         with engine.lock:
             similarity = book.similarities(item.term, vector)[0]
             sense_ids = book.senses(item.term)

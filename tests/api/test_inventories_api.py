@@ -6,6 +6,7 @@ import json
 
 from sqlalchemy import func, select
 
+from service.engine.types import SENTENCE_WEIGHT_BOUNDS
 from service.store.database import session_scope
 from service.store.models import Inventory, InventoryVersion, Sense, SenseExample, Term
 from tests.conftest import bearer
@@ -256,3 +257,28 @@ def test_evidence_is_added_whole_or_not_at_all(client, api_keys, inventory_docum
     assert response.json() == {"added": 2}
     counts = client.get("/v1/inventories/tiny-shop/evidence", headers=admin).json()
     assert counts["per_sense"] == {"bass.fish": 2} and counts["watermark"] >= 2
+
+
+def test_sentence_weight_is_patched_within_its_bounds_and_refused_outside(
+    client, api_keys, inventory_document, settings
+):
+    admin = bearer(api_keys["admin"])
+    client.post("/v1/inventories", json=inventory_document, headers=admin)
+    patched = client.patch(
+        "/v1/inventories/tiny-shop", json={"settings": {"sentence_weight": 0.5}}, headers=admin
+    )
+    assert patched.status_code == 200, patched.text
+    document = client.get("/v1/inventories/tiny-shop/document", headers=admin).json()
+    assert document["settings"]["sentence_weight"] == 0.5
+    before = _row_counts(settings)
+    high = SENTENCE_WEIGHT_BOUNDS[1]
+    for bad in (-1, high + 1, "strong"):
+        response = client.patch(
+            "/v1/inventories/tiny-shop", json={"settings": {"sentence_weight": bad}},
+            headers=admin,
+        )
+        assert_problem(response, 422)
+    inventory_document["name"] = "tiny-heavy"
+    inventory_document["settings"] = {"sentence_weight": high + 1}
+    assert_problem(client.post("/v1/inventories", json=inventory_document, headers=admin), 422)
+    assert _row_counts(settings) == before

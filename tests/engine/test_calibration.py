@@ -17,7 +17,7 @@ from service.engine.calibration import (
     reliability_bins,
 )
 from service.engine.prototypes import PrototypeBook
-from service.engine.types import Evidence, InventorySpec, SenseSpec, TermSpec
+from service.engine.types import Evidence, InventorySettings, InventorySpec, SenseSpec, TermSpec
 
 TRUE_TEMPERATURE = 0.05
 
@@ -102,7 +102,8 @@ class FixedEncoder:
 
 def book_with_evidence(vectors: np.ndarray, senses: list[str]) -> PrototypeBook:
     inventory = InventorySpec(
-        "loo", 1, (TermSpec("bass", (SenseSpec("f", "fish"), SenseSpec("m", "music"))),)
+        "loo", 1, (TermSpec("bass", (SenseSpec("f", "fish"), SenseSpec("m", "music"))),),
+        settings=InventorySettings(sentence_weight=0.0),  # the token channel alone
     )
     evidence = [
         Evidence(i, "bass", sense, "a bass", 2, 6) for i, sense in enumerate(senses, start=1)

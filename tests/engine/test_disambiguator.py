@@ -4,10 +4,12 @@ from __future__ import annotations
 
 import json
 import re
+from dataclasses import replace
 from pathlib import Path
 
 import pytest
 
+from service.engine.assignment import softmax
 from service.engine.disambiguator import Disambiguator, SpanQuery
 from service.engine.errors import DocumentTooLarge, InventoryError, UnknownTerm
 from service.engine.rationale import context_words, erasure_drops
@@ -204,3 +206,87 @@ def test_evidence_changes_decisions(encoder, bass_inventory):
     assert after.candidates[0].sense_id == other
     was = {c.sense_id: c.similarity for c in before.candidates}[other]
     assert after.candidates[0].similarity > was + 0.1
+
+
+class RecordingEncoder:
+    """The session encoder, recording which of its methods the engine calls."""
+
+    def __init__(self, encoder) -> None:
+        self.encoder = encoder
+        self.model_id = encoder.model_id
+        self.dimension = encoder.dimension
+        self.calls: list[str] = []
+
+    def __getattr__(self, name):
+        method = getattr(self.encoder, name)
+        if not callable(method):
+            return method
+
+        def recorded(*args, **kwargs):
+            self.calls.append(name)
+            return method(*args, **kwargs)
+
+        return recorded
+
+
+def with_sentence_weight(inventory: InventorySpec, weight: float) -> InventorySpec:
+    return replace(inventory, settings=replace(inventory.settings, sentence_weight=weight))
+
+
+SENTENCE_QUERIES = [
+    SpanQuery("We caught a huge bass in the lake.", 17, 21, "bass", "a"),
+    SpanQuery("The bass player tuned his guitar before the show.", 4, 8, "bass", "b"),
+    SpanQuery("A bass, a cooler and two rods went into the boat.", 2, 6, "bass", "c"),
+]
+
+
+def test_sentence_weight_zero_reads_and_scores_the_token_channel_alone(encoder, bass_inventory):
+    recording = RecordingEncoder(encoder)
+    engine = Disambiguator(recording, with_sentence_weight(bass_inventory, 0.0))
+    results = engine.classify_spans(SENTENCE_QUERIES)
+    assert not {"encode_spans_with_windows", "encode_gloss_sentences"} & set(recording.calls)
+    book, trust = engine.prototypes, engine.trust
+    rows = engine.similarities(SENTENCE_QUERIES, encoder.encode_spans(
+        [(q.text, q.start, q.end) for q in SENTENCE_QUERIES]))
+    for result, row in zip(results, rows, strict=True):
+        expected = softmax(row - book.penalty("bass"), trust.temperature)
+        got = {c.sense_id: c.probability for c in result.candidates}
+        assert [got[s] for s in book.senses("bass")] == pytest.approx(expected.tolist(), abs=0)
+
+
+def test_sentence_channel_is_read_on_every_scoring_path(encoder, bass_inventory):
+    spec = with_sentence_weight(bass_inventory, 1.0)
+    engine = Disambiguator(encoder, spec, consistency_weight=0.0)
+    plain = Disambiguator(encoder, with_sentence_weight(bass_inventory, 0.0),
+                          consistency_weight=0.0)
+    by_spans = engine.classify_spans(SENTENCE_QUERIES)
+    triples = [(q.text, q.start, q.end) for q in SENTENCE_QUERIES]
+    vectors, sentences = encoder.encode_spans_with_windows(triples)
+    by_vectors = engine.classify_vectors(SENTENCE_QUERIES, vectors, sentences)
+    with pytest.raises(ValueError, match="sentence"):
+        engine.classify_vectors(SENTENCE_QUERIES, vectors)
+    tagged = [
+        document.occurrences[0]
+        for document in engine.tag(
+            [Document.from_text(q.document_id, q.text) for q in SENTENCE_QUERIES],
+            rationale=True,
+        )
+    ]
+    for span, vector, document in zip(by_spans, by_vectors, tagged, strict=True):
+        assert span.confidence == pytest.approx(vector.confidence, abs=1e-5)
+        assert span.confidence == pytest.approx(document.confidence, abs=1e-5)
+    # The channel changes the scores: its weight times the window's cosine to each
+    # sense's sentence prototype (same similarities, other probabilities).
+    base = plain.classify_spans(SENTENCE_QUERIES)
+    for a, b in zip(base, by_spans, strict=True):
+        cosines = {c.sense_id: c.similarity for c in a.candidates}
+        assert {c.sense_id: c.similarity for c in b.candidates} == pytest.approx(cosines)
+    assert any(
+        abs(a.confidence - b.confidence) > 1e-4 for a, b in zip(base, by_spans, strict=True)
+    )
+
+
+def test_prototypes_of_another_sentence_weight_are_refused(encoder, bass_inventory):
+    book = Disambiguator(encoder, with_sentence_weight(bass_inventory, 0.0)).prototypes
+    with pytest.raises(InventoryError, match="sentence weight"):
+        Disambiguator(encoder, with_sentence_weight(bass_inventory, 1.0), prototypes=book)

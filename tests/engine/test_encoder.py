@@ -223,3 +223,38 @@ def test_int8_encoder_is_a_different_model_close_to_the_float_one(encoder):
     span = [(SENTENCE, 19, 23)]
     cosine = float(encoder.encode_spans(span)[0] @ quantized.encode_spans(span)[0])
     assert 0.9 < cosine < 1.0  # int8 weights move the vector a little, not away
+
+
+def reference_sentence_vector(reference, text: str) -> np.ndarray:
+    """Sentence-BERT's mean pooling (Reimers & Gurevych 2019; the sentence-transformers
+    configuration of all-MiniLM-L6-v2): last layer, averaged over every token under the
+    attention mask, [CLS] and [SEP] included, then L2-normalised."""
+    tokenizer, model = reference
+    encoding = tokenizer(text, return_tensors="pt")
+    with torch.no_grad():
+        last = model(**encoding).last_hidden_state[0]
+    vector = last.mean(dim=0).numpy()
+    return vector / np.linalg.norm(vector)
+
+
+def test_window_sentence_vectors_are_the_native_sentence_embedding(encoder, reference):
+    other = "The bass line carried the whole song."
+    spans = [(SENTENCE, SENTENCE.index("bass"), SENTENCE.index("bass") + 4),
+             (SENTENCE, SENTENCE.index("lake"), SENTENCE.index("lake") + 4),
+             (other, 4, 8)]
+    vectors, sentences = encoder.encode_spans_with_windows(spans)
+    assert np.array_equal(vectors, encoder.encode_spans(spans))  # the same forward pass
+    for (text, _, _), sentence in zip(spans, sentences, strict=True):
+        np.testing.assert_allclose(sentence, reference_sentence_vector(reference, text),
+                                   atol=1e-5)
+    np.testing.assert_allclose(encoder.encode_sentences([other])[0], sentences[2], atol=1e-5)
+    (detailed,) = encoder.encode_spans_detailed(spans[:1])
+    np.testing.assert_allclose(detailed.sentence, sentences[0], atol=1e-5)
+    empty_vectors, empty_sentences = encoder.encode_spans_with_windows([])
+    assert empty_vectors.shape == empty_sentences.shape == (0, encoder.dimension)
+
+
+def test_gloss_sentences_use_the_gloss_template(encoder, reference):
+    (vector,) = encoder.encode_gloss_sentences([("bass", "a freshwater fish", ())])
+    expected = reference_sentence_vector(reference, encoder.gloss_text("bass", "a freshwater fish"))
+    np.testing.assert_allclose(vector, expected, atol=1e-5)

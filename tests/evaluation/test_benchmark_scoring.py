@@ -12,10 +12,13 @@ import pytest
 
 from service.evaluation.benchmark import (
     EngineDecisions,
+    EngineOptions,
     Instance,
     _confidences,
+    engine_decisions,
     f1_table,
     fit_engine_temperature,
+    window_lookup,
 )
 
 
@@ -66,3 +69,14 @@ def test_temperature_is_fitted_on_the_engine_rows_with_their_prior() -> None:
     temperature, fitted_rows, gold, _ = fit_engine_temperature(decisions, instances)
     assert gold == [0, 0, 0, 1] and len(fitted_rows) == 4
     assert temperature == pytest.approx(0.1 / np.log(3), rel=1e-3)
+
+
+def test_window_lookup_and_the_sentence_channel_needing_it() -> None:
+    vectors = np.arange(8, dtype=np.float32).reshape(4, 2)
+    windows = window_lookup(INSTANCES, vectors)
+    # one span, one window: i1..i4 share a span here, so they share one row (the last)
+    np.testing.assert_array_equal(windows([INSTANCES[2]]), vectors[[3]])
+    assert windows([]).shape == (0, 2)
+    with pytest.raises(ValueError, match="window"):
+        engine_decisions(None, None, [], np.zeros((0, 2)), INSTANCES, np.zeros((4, 2)),
+                         EngineOptions(sentence_weight=1.0))

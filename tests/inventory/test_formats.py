@@ -4,9 +4,11 @@ from __future__ import annotations
 
 import pytest
 
+from service.engine.types import DEFAULT_SENTENCE_WEIGHT, SENTENCE_WEIGHT_BOUNDS
 from service.inventory.csv_format import read_inventory_csv, write_inventory_csv
 from service.inventory.document import (
     InventoryInvalid,
+    inventory_schema,
     parse_inventory_document,
     spec_to_document,
     validate_inventory_document,
@@ -57,3 +59,20 @@ def test_csv_errors_name_row_and_column():
     with pytest.raises(InventoryInvalid) as caught:
         read_inventory_csv("term,gloss\nbass,fish\n", "x")
     assert "sense_id" in caught.value.problems[0].message
+
+
+def test_sentence_weight_round_trips_defaults_and_is_bounded(inventory_document):
+    low, high = SENTENCE_WEIGHT_BOUNDS
+    assert parse_inventory_document(inventory_document).settings.sentence_weight == (
+        DEFAULT_SENTENCE_WEIGHT)
+    inventory_document["settings"] = {"sentence_weight": 0.5}
+    spec = parse_inventory_document(inventory_document)
+    assert spec.settings.sentence_weight == 0.5
+    assert spec_to_document(spec)["settings"]["sentence_weight"] == 0.5
+    assert parse_inventory_document(spec_to_document(spec)) == spec
+    assert inventory_schema()["properties"]["settings"]["properties"]["sentence_weight"] == {
+        "type": "number", "minimum": low, "maximum": high}
+    for bad in (low - 0.5, high + 0.5, "1", None):
+        inventory_document["settings"] = {"sentence_weight": bad}
+        problems = validate_inventory_document(inventory_document)
+        assert [p.pointer for p in problems] == ["/settings/sentence_weight"], bad
