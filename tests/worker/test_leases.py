@@ -185,8 +185,8 @@ def test_the_worker_reads_its_documents_and_engine_without_the_write_lock(
         held["documents"].append(gate.locked())  # a write session would hold it by now
         return found
 
-    def engine_found(cache, session, settings, pin):
-        found = find_engine(cache, session, settings, pin)
+    def engine_found(cache, session, settings, pin, spec=None):
+        found = find_engine(cache, session, settings, pin, spec)
         held["engine"].append(gate.locked())
         return found
 
