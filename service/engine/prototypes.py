@@ -464,19 +464,32 @@ class PrototypeBook:
         """One sense's prototype; `without` removes one evidence vector and
         `without_definition` one example vector (leave-one-out)."""
         accumulator = self._accumulators[sense_id]
-        evidence_sum, count = accumulator.evidence_sum, accumulator.evidence_count
+        return self._leave_out(
+            (accumulator.definition_sum, accumulator.definition_count),
+            (accumulator.evidence_sum, accumulator.evidence_count),
+            without,
+            without_definition,
+        )
+
+    def _leave_out(
+        self,
+        definition: tuple[np.ndarray, int],
+        evidence: tuple[np.ndarray, int],
+        without: np.ndarray | None,
+        without_definition: np.ndarray | None,
+    ) -> np.ndarray | None:
+        """The blend of (sum, count) parts, one evidence or definition vector taken out."""
+        (definition_sum, definition_count), (evidence_sum, count) = definition, evidence
         if without is not None:
             evidence_sum, count = evidence_sum - without, count - 1
-        definition_sum = accumulator.definition_sum
-        definition_count = accumulator.definition_count
         if without_definition is not None:
             definition_sum = definition_sum - without_definition
             definition_count -= 1
-        definition = definition_sum if definition_count else None
-        evidence = evidence_sum if count > 0 else None
-        if definition is None and evidence is None:
+        kept_definition = definition_sum if definition_count else None
+        kept_evidence = evidence_sum if count > 0 else None
+        if kept_definition is None and kept_evidence is None:
             return None
-        return blend(definition, evidence, count, self.evidence_prior).astype(np.float32)
+        return blend(kept_definition, kept_evidence, count, self.evidence_prior).astype(np.float32)
 
     def matrix(self, term: str) -> np.ndarray:
         """(senses, dim) unit prototypes of a term's senses, in inventory order.
@@ -506,20 +519,12 @@ class PrototypeBook:
         accumulator = self._accumulators[sense_id]
         if accumulator.sentence_definition_sum is None or accumulator.sentence_evidence_sum is None:
             return None
-        evidence_sum = accumulator.sentence_evidence_sum
-        count = accumulator.evidence_count
-        if without is not None:
-            evidence_sum, count = evidence_sum - without, count - 1
-        definition_sum = accumulator.sentence_definition_sum
-        definition_count = accumulator.sentence_definition_count
-        if without_definition is not None:
-            definition_sum = definition_sum - without_definition
-            definition_count -= 1
-        definition = definition_sum if definition_count else None
-        evidence = evidence_sum if count > 0 else None
-        if definition is None and evidence is None:
-            return None
-        return blend(definition, evidence, count, self.evidence_prior).astype(np.float32)
+        return self._leave_out(
+            (accumulator.sentence_definition_sum, accumulator.sentence_definition_count),
+            (accumulator.sentence_evidence_sum, accumulator.evidence_count),
+            without,
+            without_definition,
+        )
 
     def sentence_matrix(self, term: str) -> np.ndarray:
         """(senses, dim) unit sentence prototypes of a term's senses (zero rows while
