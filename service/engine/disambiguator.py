@@ -396,7 +396,7 @@ class Disambiguator:
         for query, row, vector, sentence in zip(spans, rows, vectors, sentences_of, strict=True):
             prior = self.prototypes.log_prior(query.term) if self.sense_prior else None
             senses = self.prototypes.senses(query.term)
-            p_value = trust.missing.p_value(outlier_score(query.term, vector))
+            p_value = trust.missing.p_value(outlier_score(query.term, vector, sentence))
             assignments.append(
                 assign(
                     row,

@@ -638,6 +638,17 @@ class PrototypeBook:
             return np.zeros((0, self.dimension), np.float64)
         return np.stack(rows).astype(np.float64)
 
+    def gloss_sentences(self, term: str) -> np.ndarray:
+        """(glosses, dim) sentence vectors of the term's glosses (sentence channel on)."""
+        items = self._items.get(term)
+        rows = [
+            sentence for sentence, kind in zip(items.sentences, items.kinds, strict=True)
+            if kind == "gloss" and sentence is not None
+        ] if items is not None else []
+        if not rows:
+            return np.zeros((0, self.dimension), np.float64)
+        return np.stack(rows).astype(np.float64)
+
     def held_out_rows(self, max_items: int = MAX_HELD_OUT_ITEMS) -> list[HeldOutRow]:
         """Every labeled item (example or evidence) of every term, scored against
         prototypes and hub penalties rebuilt without it: no item scores itself.

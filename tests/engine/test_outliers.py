@@ -50,3 +50,52 @@ def test_shifted_scores_are_flagged_far_more_often():
     outliers = rng.standard_normal(500) + 3.0
     caught = np.mean([model.flags(model.p_value(float(s))) for s in outliers])
     assert caught > 0.7
+
+
+# -- the score with the sentence channel -------------------------------------------------
+
+
+def _distances(glosses: np.ndarray, items: np.ndarray, vector: np.ndarray) -> float:
+    gloss = 1.0 - float(np.max(glosses @ vector))
+    return gloss + (1.0 - float(np.max(items @ vector)) if len(items) else gloss)
+
+
+def test_the_sentence_channel_adds_its_weighted_window_distances_to_the_score():
+    from service.engine.outliers import occurrence_score
+    from service.engine.prototypes import PrototypeBook
+    from tests.engine.test_prototypes import CountingEncoder, evidence, with_weight
+
+    items = [evidence(1), evidence(2, "bass.music"), evidence(3)]
+    weighted = PrototypeBook.build(CountingEncoder(), with_weight(2.0), items)
+    plain = PrototypeBook.build(CountingEncoder(), with_weight(0.0), items)
+    probe, window = CountingEncoder._vector("probe"), CountingEncoder._vector("a window")
+    token = occurrence_score(plain, "bass", probe)
+    assert token == pytest.approx(_distances(
+        plain.gloss_vectors("bass"), plain.contextual_items("bass")[0], probe))
+    sentence = _distances(weighted.gloss_sentences("bass"),
+                          weighted.contextual_sentences("bass"), window)
+    assert len(weighted.gloss_sentences("bass")) == 2  # one per gloss of the term
+    assert occurrence_score(weighted, "bass", probe, window) == pytest.approx(
+        token + 2.0 * sentence)
+    with pytest.raises(ValueError, match="sentence"):
+        occurrence_score(weighted, "bass", probe)
+
+
+def test_calibration_scores_leave_each_item_out_of_both_channels():
+    from service.engine.outliers import calibration_scores
+    from service.engine.prototypes import PrototypeBook
+    from tests.engine.test_prototypes import CountingEncoder, evidence, with_weight
+
+    items = [evidence(1), evidence(2, "bass.music"), evidence(3), evidence(4)]
+    book = PrototypeBook.build(CountingEncoder(), with_weight(1.0), items)
+    vectors = book.contextual_items("bass")[0]
+    windows = book.contextual_sentences("bass")
+    expected = []
+    for j in range(len(vectors)):
+        others = np.arange(len(vectors)) != j
+        expected.append(
+            _distances(book.gloss_vectors("bass"), vectors[others], vectors[j])
+            + _distances(book.gloss_sentences("bass"), windows[others], windows[j])
+        )
+    # "lantern" has no example with the term and no evidence: no calibration item
+    np.testing.assert_allclose(calibration_scores(book), np.sort(expected))
