@@ -10,7 +10,7 @@ engine cache (an engine must never hold evidence a rollback removed).
 from __future__ import annotations
 
 import copy
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
@@ -21,7 +21,8 @@ from sqlalchemy.orm import Session
 
 from service.batches.repository import schedule_webhook
 from service.config import Settings
-from service.engine.assignment import Assignment, assign
+from service.engine import Disambiguator, SpanQuery
+from service.engine.assignment import Assignment
 from service.engine.types import Document, InventorySpec
 from service.inventory.document import parse_inventory_document
 from service.review.queue import (
@@ -350,6 +351,31 @@ def _answers_by_tagging(
     return answers
 
 
+def answers_from_vectors(
+    disambiguator: Disambiguator, term: str, items: Sequence[ReviewItem]
+) -> dict[int, Assignment]:
+    """Item id -> its answer from its stored vectors, scored as a batch scores an
+    occurrence (alignment, hubness penalty, sentence channel, fitted temperature,
+    guaranteed threshold, missing-sense test), document consistency aside. Items
+    without a window sentence vector while the sentence channel is on are left out:
+    their served score cannot be reproduced. Call it under the engine's lock."""
+    channel = disambiguator.prototypes.sentences
+    usable = [i for i in items if not channel or i.sentence_vector is not None]
+    if not usable:
+        return {}
+    vectors = np.stack([vector_from_bytes(i.vector) for i in usable])
+    sentences = np.stack([
+        vector_from_bytes(i.sentence_vector) for i in usable if i.sentence_vector is not None
+    ]) if channel else None
+    queries = [SpanQuery("", 0, 0, term, document_id=f"item-{i.id}") for i in usable]
+    results = disambiguator.classify_vectors(queries, vectors, sentences)
+    return {
+        queued.id: Assignment(r.sense_id, r.confidence, r.margin, r.status, r.candidates,
+                              r.missing_sense_p)
+        for queued, r in zip(usable, results, strict=True)
+    }
+
+
 def rescore_term(
     session: Session, settings: Settings, item: ReviewItem, decision_id: int | None
 ) -> Rescored:
@@ -378,19 +404,15 @@ def rescore_term(
     )
     rest = [i for i in items if i.id not in answers]
     if rest:
-        # Stored vectors are token vectors only: these items are scored without the
-        # sentence channel (the re-tagged ones above have it, as any batch does).
-        vectors = np.stack([vector_from_bytes(i.vector) for i in rest])
         with engine.lock:
-            rows = book.similarities(item.term, vectors)
-            senses = book.senses(item.term)
-        for queued, row in zip(rest, rows, strict=True):
-            answers[queued.id] = assign(row, senses, spec.settings)
+            answers.update(answers_from_vectors(engine.disambiguator, item.term, rest))
     resolve = auto_resolve(session, inventory.id)
     now = database_now(session)
     resolved = []
     for queued in items:
-        answer = answers[queued.id]
+        answer = answers.get(queued.id)
+        if answer is None:  # made before sentence vectors were kept: left as it was
+            continue
         queued.confidence = float(answer.confidence)
         queued.margin = float(answer.margin)
         if resolve and answer.status == "assigned" and not claim_is_live(queued, now):
@@ -421,7 +443,7 @@ def rescore_term(
         if decision is not None:  # the share as this decision left it, resolutions included
             decision.queue_share = queue_share(session, item.team_id, item.inventory_id)
     session.flush()
-    return Rescored(len(items), resolved)
+    return Rescored(len(answers), resolved)
 
 
 def decision_json(decision: ReviewDecision, inventory_name: str) -> dict[str, Any]:

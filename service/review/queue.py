@@ -1,10 +1,10 @@
 """The queue: which batch results wait for a person, in what order, and who holds which.
 
 Items are made from batch results of status review or abstained the first time a
-team's queue is read (`sync_queue`); each keeps its occurrence's context vector,
-so a decision re-scores the term's other pending items without encoding them
-again. Claims are short leases: a reviewer's claim keeps others off the item
-until it expires, and an expired claim returns the item to everybody.
+team's queue is read (`sync_queue`); each keeps its occurrence's context and
+window sentence vectors, so a decision re-scores the term's other pending items
+without encoding them again. Claims are short leases: a reviewer's claim keeps
+others off the item until it expires, and an expired claim returns the item to everybody.
 """
 
 from __future__ import annotations
@@ -100,10 +100,10 @@ def sync_queue(session: Session, settings: Settings, team_id: int) -> int:
         text = field_text(documents.get((result.batch_id, result.document_id), []), result.field)
         spans.append((text, int(result.result["start"]), int(result.result["end"])))
     encoder = shared_engines().encoder(settings)
-    with _ENCODE_LOCK:
-        vectors = encoder.encode_spans(spans)
+    with _ENCODE_LOCK:  # one forward pass gives both vectors
+        vectors, sentences = encoder.encode_spans_with_windows(spans)
     touched: set[tuple[int, str]] = set()
-    for row, vector in zip(rows, vectors, strict=True):
+    for row, vector, sentence in zip(rows, vectors, sentences, strict=True):
         result = row.BatchResult
         try:
             with session.begin_nested():
@@ -121,6 +121,7 @@ def sync_queue(session: Session, settings: Settings, team_id: int) -> int:
                         margin=float(result.result.get("margin", 0.0)),
                         usefulness=0.0,
                         vector=vector_to_bytes(vector),
+                        sentence_vector=vector_to_bytes(sentence),
                     )
                 )
         except IntegrityError:  # another request made this item meanwhile

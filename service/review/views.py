@@ -12,8 +12,7 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from service.config import Settings
-from service.engine.assignment import assign
-from service.review.decisions import current_spec
+from service.review.decisions import answers_from_vectors, current_spec
 from service.review.queue import field_text, vector_from_bytes
 from service.store.clock import as_utc_or_none
 from service.store.evidence import evidence_watermark
@@ -177,16 +176,14 @@ def item_view(session: Session, settings: Settings, item: ReviewItem) -> ItemVie
     )
     book = engine.disambiguator.prototypes
     if item.term in book.terms():
-        # The stored vector is the token vector alone: this ordering of the senses leaves
-        # out the sentence channel (the item's own result, shown beside it, has it).
-        with engine.lock:
-            similarity = book.similarities(item.term, vector)[0]
-            sense_ids = book.senses(item.term)
+        with engine.lock:  # the senses ranked as a batch would rank them
+            answer = answers_from_vectors(engine.disambiguator, item.term, [item]).get(item.id)
             evidence = book.evidence_items(item.term)
-        answer = assign(similarity, sense_ids, engine.disambiguator.inventory.settings)
-        probabilities = {c.sense_id: c.probability for c in answer.candidates}
+        if answer is not None:
+            probabilities = {c.sense_id: c.probability for c in answer.candidates}
+        aligned = engine.disambiguator.align(vector[None, :])[0]  # the book's space
         for evidence_id, sense_id, evidence_vector in evidence:
-            score = float(np.dot(evidence_vector, vector))
+            score = float(np.dot(evidence_vector, aligned))
             if sense_id not in nearest or score > nearest[sense_id][1]:
                 nearest[sense_id] = (evidence_id, score)
     candidates = []

@@ -340,8 +340,9 @@ class WebhookAttempt(Base):
 # Review queue ----------------------------------------------------------------------------------
 #
 # A review item is one batch result a person should look at (status review or abstained). Its
-# context vector is kept so a decision can re-score the term's other pending items without
-# encoding them again, and so "none of these" items can be clustered into new senses.
+# context vector (and its window sentence vector, for inventories with the sentence channel) is
+# kept so a decision can re-score the term's other pending items without encoding them again,
+# and so "none of these" items can be clustered into new senses.
 
 REVIEW_ITEM_STATES = ("pending", "decided", "missing", "resolved")
 
@@ -372,6 +373,7 @@ class ReviewItem(Base):
     margin: Mapped[float] = mapped_column(Float)
     usefulness: Mapped[float] = mapped_column(Float, default=0.0)
     vector: Mapped[bytes] = mapped_column(LargeBinary)
+    sentence_vector: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
     claimed_by: Mapped[str | None] = mapped_column(String(32), nullable=True)
     claim_expires_at: Mapped[datetime | None] = mapped_column(
         DateTime(timezone=True), nullable=True

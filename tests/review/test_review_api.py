@@ -325,3 +325,70 @@ def test_hostile_identifiers_are_4xx(queued):
     ):
         assert 400 <= response.status_code < 500, response.text
         assert response.headers["content-type"] == "application/problem+json"
+
+
+def test_items_past_the_retagged_documents_are_scored_as_a_batch_scores_them(
+    queued, monkeypatch
+):
+    """From stored vectors, a decision's re-scoring gives what a batch would serve
+    (hubness penalty, sentence channel, the fitted temperature), document consistency
+    aside: the answer of one occurrence tagged alone."""
+    from service.engine import SpanQuery
+    from service.review import decisions
+    from service.store.evidence import evidence_watermark
+    from service.store.models import BatchResult, Inventory
+    from service.tagging.engines import Pin, shared_engines
+
+    monkeypatch.setattr(decisions, "RESCORE_DOCUMENTS", 0)  # every item from its vectors
+    client, key = queued.pipeline.client, queued.keys["review"]
+    first = _claim(client, key, count=1, term="bass")[0]
+    response = client.post(
+        f"/v1/review/items/{first['id']}/decision",
+        json={"sense_id": gold_sense(_text(queued, first), "bass")},
+        headers=bearer(key),
+    )
+    assert response.status_code == 201 and response.json()["rescored"] > 0
+    settings = queued.pipeline.settings
+    with session_scope(settings) as session:
+        pending = list(session.scalars(
+            select(ReviewItem).where(ReviewItem.term == "bass", ReviewItem.state == "pending")
+        ))
+        assert pending and all(item.sentence_vector is not None for item in pending)
+        inventory = session.get(Inventory, pending[0].inventory_id)
+        pin = Pin(inventory.id, inventory.version, evidence_watermark(session, inventory.id))
+        engine = shared_engines().engine(session, settings, pin).disambiguator
+        assert engine.prototypes.sentences  # the channel the old re-scoring left out
+        texts = {d["id"]: d["text"] for d in queued.documents}
+        queries = []
+        for number, item in enumerate(pending):
+            result = session.get(BatchResult, item.result_id).result
+            queries.append(SpanQuery(texts[item.document_id], result["start"], result["end"],
+                                     "bass", document_id=str(number)))
+        served = engine.classify_spans(queries)
+    for item, answer in zip(pending, served, strict=True):
+        assert abs(item.confidence - answer.confidence) < 1e-3, (item.id, answer.confidence)
+
+
+def test_items_kept_without_a_sentence_vector_are_left_as_they_were(queued, monkeypatch):
+    """Items queued before window sentence vectors were kept (migration 0006) cannot be
+    scored as a batch scores them while the sentence channel is on: left unchanged."""
+    from service.review import decisions
+
+    monkeypatch.setattr(decisions, "RESCORE_DOCUMENTS", 0)
+    client, key = queued.pipeline.client, queued.keys["review"]
+    first = _claim(client, key, count=1, term="bass")[0]
+    with session_scope(queued.pipeline.settings) as session:
+        before = {}
+        for item in session.scalars(select(ReviewItem).where(ReviewItem.term == "bass")):
+            item.sentence_vector = None
+            before[item.id] = item.confidence
+    response = client.post(
+        f"/v1/review/items/{first['id']}/decision",
+        json={"sense_id": gold_sense(_text(queued, first), "bass")},
+        headers=bearer(key),
+    )
+    assert response.status_code == 201
+    assert response.json()["rescored"] == 0 and response.json()["resolved"] == []
+    with session_scope(queued.pipeline.settings) as session:
+        for item in session.scalars(select(ReviewItem).where(ReviewItem.term == "bass")):
+            assert item.confidence == before[item.id]
