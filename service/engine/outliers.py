@@ -106,6 +106,13 @@ class _TermMatrices:
             book.contextual_sentences(term) if book.sentences else empty,
         )
 
+    def without(self, index: int) -> _TermMatrices:
+        """The same with labeled item `index` taken out of the neighbours (leave-one-out)."""
+        keep = np.arange(len(self.neighbours)) != index
+        sentences = self.neighbour_sentences[keep] if len(self.neighbour_sentences) else (
+            self.neighbour_sentences)
+        return _TermMatrices(self.glosses, self.neighbours[keep], self.gloss_sentences, sentences)
+
 
 def _score(book: PrototypeBook, matrices: _TermMatrices, vector: np.ndarray,
            sentence: np.ndarray | None) -> float:
@@ -159,15 +166,11 @@ def calibration_scores(book: PrototypeBook, max_items: int = MAX_CALIBRATION_ITE
         matrices = _TermMatrices.of(book, term)
         picked = [i for i in range(count) if (seen + i) % step == 0]
         seen += count
-        for index in picked:
-            others = np.arange(count) != index  # the item is no neighbour of itself
-            score = _two_distances(matrices.glosses, matrices.neighbours[others],
-                                   matrices.neighbours[index])
-            if book.sentences:
-                score += book.sentence_weight * _two_distances(
-                    matrices.gloss_sentences, matrices.neighbour_sentences[others],
-                    matrices.neighbour_sentences[index])
-            scores.append(score)
+        for index in picked:  # the item is no neighbour of itself
+            sentence = matrices.neighbour_sentences[index] if book.sentences else None
+            scores.append(
+                _score(book, matrices.without(index), matrices.neighbours[index], sentence)
+            )
     return np.sort(np.asarray(scores, np.float64))
 
 

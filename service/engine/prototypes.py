@@ -629,22 +629,22 @@ class PrototypeBook:
 
     def gloss_vectors(self, term: str) -> np.ndarray:
         """(glosses, dim) gloss vectors of the term's senses (those that have a gloss)."""
-        items = self._items.get(term)
-        rows = [
-            vector for vector, kind in zip(items.vectors, items.kinds, strict=True)
-            if kind == "gloss"
-        ] if items is not None else []
-        if not rows:
-            return np.zeros((0, self.dimension), np.float64)
-        return np.stack(rows).astype(np.float64)
+        return self._gloss_rows(term, sentences=False)
 
     def gloss_sentences(self, term: str) -> np.ndarray:
         """(glosses, dim) sentence vectors of the term's glosses (sentence channel on)."""
+        return self._gloss_rows(term, sentences=True)
+
+    def _gloss_rows(self, term: str, *, sentences: bool) -> np.ndarray:
         items = self._items.get(term)
-        rows = [
-            sentence for sentence, kind in zip(items.sentences, items.kinds, strict=True)
-            if kind == "gloss" and sentence is not None
-        ] if items is not None else []
+        rows: list[np.ndarray] = []
+        if items is not None:
+            for vector, sentence, kind in zip(
+                items.vectors, items.sentences, items.kinds, strict=True
+            ):
+                row = sentence if sentences else vector
+                if kind == "gloss" and row is not None:
+                    rows.append(row)
         if not rows:
             return np.zeros((0, self.dimension), np.float64)
         return np.stack(rows).astype(np.float64)

@@ -21,7 +21,7 @@ from sqlalchemy.orm import Session
 
 from service.batches.repository import schedule_webhook
 from service.config import Settings
-from service.engine import Disambiguator, SpanQuery
+from service.engine import Disambiguator, OccurrenceResult, SpanQuery
 from service.engine.assignment import Assignment
 from service.engine.types import Document, InventorySpec
 from service.inventory.document import parse_inventory_document
@@ -302,6 +302,11 @@ class Rescored:
 RESCORE_DOCUMENTS = 200  # documents re-tagged per decision; further items use their vectors
 
 
+def _assignment(result: OccurrenceResult) -> Assignment:
+    return Assignment(result.sense_id, result.confidence, result.margin, result.status,
+                      result.candidates, result.missing_sense_p)
+
+
 def _answers_by_tagging(
     session: Session, get_engine: Any, items: list[ReviewItem]
 ) -> dict[int, Assignment]:
@@ -327,13 +332,7 @@ def _answers_by_tagging(
     for tagged in tag_pinned(get_engine, documents, rationale=False):
         for occurrence in tagged.occurrences:
             found[(tagged.document_id, occurrence.field, occurrence.start, occurrence.end)] = (
-                Assignment(
-                    occurrence.sense_id,
-                    occurrence.confidence,
-                    occurrence.margin,
-                    occurrence.status,
-                    occurrence.candidates,
-                )
+                _assignment(occurrence)
             )
     answers: dict[int, Assignment] = {}
     for item in items:
@@ -369,11 +368,7 @@ def answers_from_vectors(
     ]) if channel else None
     queries = [SpanQuery("", 0, 0, term, document_id=f"item-{i.id}") for i in usable]
     results = disambiguator.classify_vectors(queries, vectors, sentences)
-    return {
-        queued.id: Assignment(r.sense_id, r.confidence, r.margin, r.status, r.candidates,
-                              r.missing_sense_p)
-        for queued, r in zip(usable, results, strict=True)
-    }
+    return {queued.id: _assignment(r) for queued, r in zip(usable, results, strict=True)}
 
 
 def rescore_term(
